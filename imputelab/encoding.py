@@ -1,0 +1,214 @@
+"""The working frame: what methods and masks see.
+
+Methods are written against two column types only: ``float64`` (numbers; datetimes as seconds
+since 1970) and unordered pandas ``Categorical`` (labels of categorical and binary columns).
+:class:`Encoding` turns a typed table into that frame and back, so that integers come back as
+integers, labels as the column's own labels and timestamps as timestamps.
+
+Datetime columns also feed the other columns' models through derived feature columns
+(year, month, day of week, hour, and the duration between each pair of datetime columns),
+made by :func:`with_derived` after masking, so a hidden timestamp never leaks through them.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+__all__ = ["DERIVED_SEP", "Encoding", "is_categorical", "with_derived"]
+
+DERIVED_SEP = "::"
+_COMPONENTS = ("year", "month", "dayofweek", "hour")
+_NS_PER_S = 1_000_000_000
+
+
+def is_categorical(series: pd.Series) -> bool:
+    """True for a working-frame label column."""
+    return isinstance(series.dtype, pd.CategoricalDtype)
+
+
+def _sort_labels(values: Sequence[Any]) -> list[Any]:
+    try:
+        return sorted(values)
+    except TypeError:
+        return sorted(values, key=str)
+
+
+def _to_seconds(values: pd.Series) -> np.ndarray:
+    stamps = pd.to_datetime(values, errors="coerce")
+    out = np.full(len(stamps), np.nan)
+    ok = stamps.notna().to_numpy()
+    if ok.any():
+        ns = stamps[ok].astype("datetime64[ns]").to_numpy().astype("int64")
+        out[ok] = ns / _NS_PER_S
+    return out
+
+
+@dataclass
+class Encoding:
+    """How a typed table maps to the working frame.
+
+    Attributes
+    ----------
+    kinds : dict
+        Kind of every working column (``numeric``, ``binary``, ``categorical``, ``datetime``).
+    categories : dict
+        Labels of every label column, in code order.
+    ranges : dict
+        Observed minimum and maximum of every numeric and datetime column; numeric fills are
+        clipped to it (a fill outside everything ever observed would be an extrapolation).
+    integer : dict
+        Numeric columns written back as whole numbers.
+    resolution : dict
+        Seconds to which each datetime column's fills are rounded (60 when its format has
+        no seconds, 86400 when it has no time).
+    """
+
+    kinds: dict[str, str]
+    categories: dict[str, list[Any]] = field(default_factory=dict)
+    ranges: dict[str, tuple[float, float]] = field(default_factory=dict)
+    integer: dict[str, bool] = field(default_factory=dict)
+    resolution: dict[str, int] = field(default_factory=dict)
+
+    @classmethod
+    def fit(
+        cls,
+        typed: pd.DataFrame,
+        kinds: Mapping[str, str],
+        *,
+        integer: Mapping[str, bool] | None = None,
+        date_formats: Mapping[str, str | None] | None = None,
+    ) -> Encoding:
+        """Learn categories and ranges from a typed frame.
+
+        Parameters
+        ----------
+        typed : DataFrame
+            Cleaned table (missing cells are NA).
+        kinds : mapping
+            Working columns and their kinds, in the order the working frame keeps.
+        integer : mapping, optional
+            Numeric columns holding whole numbers.
+        date_formats : mapping, optional
+            Text format of datetime columns (sets the rounding of filled timestamps).
+        """
+        enc = cls(kinds=dict(kinds))
+        integer = integer or {}
+        date_formats = date_formats or {}
+        for name, kind in kinds.items():
+            column = typed[name]
+            if kind in ("categorical", "binary"):
+                enc.categories[name] = _sort_labels(list(pd.unique(column.dropna())))
+                continue
+            values = _to_seconds(column) if kind == "datetime" else pd.to_numeric(
+                column, errors="coerce").to_numpy(float)
+            finite = values[np.isfinite(values)]
+            if len(finite):
+                enc.ranges[name] = (float(finite.min()), float(finite.max()))
+            enc.integer[name] = bool(integer.get(name, pd.api.types.is_integer_dtype(column)))
+            if kind == "datetime":
+                fmt = date_formats.get(name)
+                if fmt is None or "%S" in fmt:
+                    enc.resolution[name] = 1
+                elif "%H" in fmt:
+                    enc.resolution[name] = 60
+                else:
+                    enc.resolution[name] = 86400
+        return enc
+
+    @property
+    def columns(self) -> list[str]:
+        """Working columns, in order."""
+        return list(self.kinds)
+
+    def encode(self, typed: pd.DataFrame) -> pd.DataFrame:
+        """Typed frame to working frame (unseen labels become missing)."""
+        data = {}
+        for name, kind in self.kinds.items():
+            column = typed[name]
+            if kind in ("categorical", "binary"):
+                labels = column.astype(object).where(column.notna(), None)
+                data[name] = pd.Categorical(labels, categories=self.categories[name])
+            elif kind == "datetime":
+                data[name] = _to_seconds(column)
+            else:
+                data[name] = pd.to_numeric(column, errors="coerce").to_numpy(float, na_value=np.nan)
+        return pd.DataFrame(data, index=typed.index)
+
+    def decode(self, working: pd.DataFrame, typed: pd.DataFrame) -> pd.DataFrame:
+        """Put a filled working frame's values into the holes of ``typed``.
+
+        Only cells missing in ``typed`` change; every other cell and every dtype is kept.
+        """
+        out = typed.copy()
+        for name, kind in self.kinds.items():
+            if name not in working.columns:
+                continue
+            holes = typed[name].isna().to_numpy()
+            filled = working[name]
+            holes &= filled.notna().to_numpy()
+            if not holes.any():
+                continue
+            if kind in ("categorical", "binary"):
+                values = np.asarray(filled.astype(object))[holes]
+            else:
+                raw = filled.to_numpy(float)[holes]
+                if name in self.ranges:
+                    raw = np.clip(raw, *self.ranges[name])
+                if kind == "datetime":
+                    step = self.resolution.get(name, 1)
+                    seconds = np.round(raw / step) * step
+                    values = pd.to_datetime(seconds.astype("int64"), unit="s").to_numpy()
+                elif self.integer.get(name):
+                    values = np.round(raw)
+                else:
+                    values = raw
+            out[name] = _assign(out[name], holes, values)
+        return out
+
+
+def _assign(column: pd.Series, holes: np.ndarray, values: np.ndarray) -> pd.Series:
+    column = column.copy()
+    dtype = column.dtype
+    if pd.api.types.is_datetime64_any_dtype(dtype):
+        values = pd.DatetimeIndex(values).as_unit(np.datetime_data(dtype)[0]
+                                                  if not isinstance(dtype, pd.DatetimeTZDtype)
+                                                  else dtype.unit)
+        if isinstance(dtype, pd.DatetimeTZDtype):
+            values = values.tz_localize(dtype.tz)
+    elif pd.api.types.is_integer_dtype(dtype):
+        values = values.astype("int64")
+    elif pd.api.types.is_bool_dtype(dtype):
+        values = values.astype(bool)
+    elif pd.api.types.is_string_dtype(dtype) and not isinstance(dtype, pd.CategoricalDtype):
+        values = np.asarray([str(v) for v in values], dtype=object)
+    column.iloc[np.flatnonzero(holes)] = values
+    return column.astype(dtype)
+
+
+def with_derived(working: pd.DataFrame, kinds: Mapping[str, str]) -> pd.DataFrame:
+    """Add datetime component and duration columns (features only) to a working frame.
+
+    Named ``COLUMN::year``, ``COLUMN::month``, ``COLUMN::dayofweek``, ``COLUMN::hour`` and
+    ``LATER::minus::EARLIER`` (hours between two datetime columns, in column order).
+    """
+    stamps = [name for name, kind in kinds.items() if kind == "datetime" and name in working]
+    if not stamps:
+        return working
+    extra = {}
+    for name in stamps:
+        seconds = working[name].to_numpy(float)
+        ok = np.isfinite(seconds)
+        when = pd.to_datetime(np.where(ok, seconds, 0).astype("int64"), unit="s")
+        for part in _COMPONENTS:
+            values = getattr(when, part).to_numpy(float)
+            extra[f"{name}{DERIVED_SEP}{part}"] = np.where(ok, values, np.nan)
+    for i, first in enumerate(stamps):
+        for later in stamps[i + 1:]:
+            hours = (working[later].to_numpy(float) - working[first].to_numpy(float)) / 3600.0
+            extra[f"{later}{DERIVED_SEP}minus{DERIVED_SEP}{first}"] = hours
+    return pd.concat([working, pd.DataFrame(extra, index=working.index)], axis=1)

@@ -1,0 +1,280 @@
+"""Reading and writing tables: the only core module that opens paths.
+
+CSV files are read with every column as text, exactly as written (blank cells are ``""``), so
+that the survey can see disguised missing values before anything is parsed. Parquet files are
+read with their own types. Writing always goes to a temporary file beside the target that is
+renamed into place, so a failure never leaves a partial output.
+"""
+
+from __future__ import annotations
+
+import codecs
+import csv
+import hashlib
+import io
+import os
+import re
+import tempfile
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+
+import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from imputelab.errors import DataError, TableIOError
+
+__all__ = ["FORMATS", "Table", "atomic_path", "file_fingerprint", "read_table", "table_format",
+           "write_table"]
+
+FORMATS = {".csv": "csv", ".parquet": "parquet", ".pq": "parquet"}
+_SNIFF_BYTES = 1 << 16
+_DELIMITERS = [",", ";", "\t", "|"]
+
+
+@dataclass(frozen=True)
+class Table:
+    """A table as read from a file.
+
+    Attributes
+    ----------
+    frame : DataFrame
+        For CSV every column is text (``str`` dtype, blanks as ``""``); for Parquet the
+        file's own types.
+    path : Path
+        Where it was read from.
+    format : {"csv", "parquet"}
+        The file format.
+    delimiter, decimal : str
+        The CSV dialect that was sniffed (``","`` and ``"."`` for Parquet).
+    fingerprint : str
+        SHA-256 of the file's bytes.
+    """
+
+    frame: pd.DataFrame
+    path: Path
+    format: str
+    delimiter: str = ","
+    decimal: str = "."
+    fingerprint: str = ""
+
+    @property
+    def is_text(self) -> bool:
+        """True when every cell is the text written in the file (CSV input)."""
+        return self.format == "csv"
+
+
+def table_format(path: str | os.PathLike[str], *, option: str = "FILE") -> str:
+    """Return ``"csv"`` or ``"parquet"`` from the file name's extension.
+
+    Raises
+    ------
+    TableIOError
+        When the extension is neither.
+    """
+    suffix = Path(path).suffix.lower()
+    if suffix not in FORMATS:
+        raise TableIOError(
+            f"{option} '{path}': unknown extension '{suffix or '(none)'}'; use .csv or .parquet"
+        )
+    return FORMATS[suffix]
+
+
+def file_fingerprint(path: str | os.PathLike[str]) -> str:
+    """SHA-256 hex digest of a file's bytes, read in blocks."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as handle:
+        for block in iter(lambda: handle.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
+
+
+def read_table(path: str | os.PathLike[str], *, option: str = "FILE") -> Table:
+    """Read a CSV or Parquet file.
+
+    Parameters
+    ----------
+    path : path-like
+        The file. Its extension chooses the format.
+    option : str
+        How the file is named in error messages (the command-line option that gave it).
+
+    Returns
+    -------
+    Table
+
+    Raises
+    ------
+    TableIOError
+        Missing, unreadable, empty, header-only or undecodable files, unknown extensions.
+    DataError
+        Duplicate column names.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> p = pathlib.Path(tempfile.mkdtemp()) / "t.csv"
+    >>> _ = p.write_text("a,b\\n1,x\\n,y\\n")
+    >>> read_table(p).frame["a"].tolist()
+    ['1', '']
+    """
+    path = Path(path)
+    fmt = table_format(path, option=option)
+    if not path.exists():
+        raise TableIOError(f"{option} '{path}': no such file; check the path")
+    if not path.is_file():
+        raise TableIOError(f"{option} '{path}' is not a file")
+    if path.stat().st_size == 0:
+        raise TableIOError(f"{option} '{path}' is empty; give a file with a header and rows")
+    try:
+        fingerprint = file_fingerprint(path)
+    except OSError as exc:
+        raise TableIOError(f"{option} '{path}' cannot be read: {exc.strerror}") from None
+    if fmt == "csv":
+        frame, delimiter, decimal = _read_csv(path, option)
+    else:
+        frame, delimiter, decimal = _read_parquet(path, option), ",", "."
+    if frame.shape[1] == 0:
+        raise TableIOError(f"{option} '{path}' has no columns")
+    if len(frame) == 0:
+        raise TableIOError(f"{option} '{path}' has a header but no rows; give a file with data")
+    return Table(frame, path, fmt, delimiter, decimal, fingerprint)
+
+
+def _read_csv(path: Path, option: str) -> tuple[pd.DataFrame, str, str]:
+    raw = path.read_bytes()
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise TableIOError(
+            f"{option} '{path}' is not valid UTF-8 (byte 0x{raw[exc.start]:02x} at offset "
+            f"{exc.start}); re-save it as UTF-8"
+        ) from None
+    if not text.strip():
+        raise TableIOError(f"{option} '{path}' is empty; give a file with a header and rows")
+    delimiter = _sniff_delimiter(text[:_SNIFF_BYTES])
+    header = next(csv.reader(io.StringIO(text), delimiter=delimiter))
+    header = [name.strip() for name in header]
+    _check_header(header, path, option)
+    try:
+        frame = pd.read_csv(
+            io.StringIO(text),
+            sep=delimiter,
+            dtype=str,
+            keep_default_na=False,
+            na_filter=False,
+            skipinitialspace=False,
+            engine="c",
+        )
+    except (pd.errors.ParserError, ValueError) as exc:
+        first = str(exc).strip().splitlines()[0]
+        raise TableIOError(f"{option} '{path}' is not a well-formed CSV file: {first}") from None
+    frame.columns = header
+    frame = frame.astype("str")
+    return frame, delimiter, _sniff_decimal(frame, delimiter)
+
+
+def _check_header(header: list[str], path: Path, option: str) -> None:
+    seen: set[str] = set()
+    dups = sorted({name for name in header if name in seen or seen.add(name)})
+    if dups:
+        raise DataError(
+            f"{option} '{path}' has duplicate column names: {', '.join(dups)}; rename them"
+        )
+    if any(name == "" for name in header):
+        position = header.index("") + 1
+        raise DataError(f"{option} '{path}': column {position} has no name; give it one")
+
+
+def _sniff_delimiter(sample: str) -> str:
+    lines = [line for line in sample.splitlines()[:50] if line.strip()]
+    if not lines:
+        return ","
+    try:
+        return csv.Sniffer().sniff("\n".join(lines), delimiters="".join(_DELIMITERS)).delimiter
+    except csv.Error:
+        # The sniffer gives up on one-column files and very regular numbers; fall back to the
+        # delimiter that splits the header into the most fields consistently.
+        counts = {d: lines[0].count(d) for d in _DELIMITERS}
+        best = max(counts, key=counts.get)
+        return best if counts[best] > 0 else ","
+
+
+_COMMA_DECIMAL = re.compile(r"^-?\d+,\d+$")
+_POINT_DECIMAL = re.compile(r"^-?\d+\.\d+$")
+
+
+def _sniff_decimal(frame: pd.DataFrame, delimiter: str) -> str:
+    if delimiter == ",":
+        return "."
+    sample = frame.head(2000)
+    comma = point = 0
+    for column in sample.columns:
+        values = sample[column].astype(str)
+        comma += int(values.str.match(_COMMA_DECIMAL).sum())
+        point += int(values.str.match(_POINT_DECIMAL).sum())
+    return "," if comma > point else "."
+
+
+def _read_parquet(path: Path, option: str) -> pd.DataFrame:
+    try:
+        arrow = pq.read_table(path)
+    except (pa.ArrowException, OSError) as exc:
+        raise TableIOError(f"{option} '{path}' is not a readable Parquet file: {exc}") from None
+    names = arrow.column_names
+    _check_header(list(names), path, option)
+    mapping = {t: pd.Int64Dtype() for t in (pa.int8(), pa.int16(), pa.int32(), pa.int64())}
+    mapping.update({pa.uint8(): pd.Int64Dtype(), pa.uint16(): pd.Int64Dtype(),
+                    pa.uint32(): pd.Int64Dtype()})
+    mapping[pa.bool_()] = pd.BooleanDtype()
+    return arrow.to_pandas(types_mapper=mapping.get)
+
+
+@contextmanager
+def atomic_path(target: str | os.PathLike[str]) -> Iterator[Path]:
+    """Yield a temporary path beside ``target``; rename it to ``target`` on success.
+
+    On any exception the temporary file is removed and ``target`` is left as it was.
+    """
+    target = Path(target)
+    parent = target.parent if str(target.parent) else Path(".")
+    if not parent.is_dir():
+        raise TableIOError(f"cannot write '{target}': folder '{parent}' does not exist")
+    handle, name = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=parent)
+    os.close(handle)
+    tmp = Path(name)
+    try:
+        yield tmp
+        os.replace(tmp, target)
+    finally:
+        if tmp.exists():
+            tmp.unlink()
+
+
+def write_table(
+    frame: pd.DataFrame,
+    path: str | os.PathLike[str],
+    *,
+    delimiter: str = ",",
+    option: str = "--out",
+) -> Path:
+    """Write a frame as CSV or Parquet (by extension), atomically.
+
+    Text frames (every column ``str``) are written cell for cell; blank cells as empty fields.
+
+    Returns
+    -------
+    Path
+        The written file.
+    """
+    path = Path(path)
+    fmt = table_format(path, option=option)
+    with atomic_path(path) as tmp:
+        if fmt == "csv":
+            with codecs.open(tmp, "w", encoding="utf-8") as handle:
+                frame.to_csv(handle, index=False, sep=delimiter, lineterminator="\n")
+        else:
+            pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), tmp)
+    return path

@@ -1,0 +1,401 @@
+"""Column kinds, disguised missing values and suspected missing codes.
+
+Every column gets one kind:
+
+``numeric``      numbers (integers or decimals); a few non-numeric cells are disguised blanks
+``binary``       exactly two distinct observed values
+``categorical``  a modest set of labels
+``datetime``     timestamps in one recognised format
+``text``         free text or high-cardinality labels: passed through, never imputed
+``identifier``   unique per row (a trip id): passed through, never imputed
+
+:func:`infer_spec` decides a column's :class:`ColumnSpec` (its kind and the cleaning it needs)
+from the raw cells; :func:`clean_column` applies a spec to raw cells, the same way on the file
+that was surveyed and on any later file.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import asdict, dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from imputelab.errors import OptionError
+
+__all__ = [
+    "IMPUTABLE_KINDS",
+    "KINDS",
+    "MISSING_TOKENS",
+    "ColumnSpec",
+    "clean_column",
+    "infer_spec",
+    "parse_numbers",
+    "suspected_codes",
+]
+
+KINDS = ("numeric", "binary", "categorical", "datetime", "text", "identifier")
+IMPUTABLE_KINDS = ("numeric", "binary", "categorical", "datetime")
+
+# Text that stands for "no value" in any column, compared case-insensitively after stripping.
+# Common practice, no source: the spellings spreadsheets, databases and exports produce.
+MISSING_TOKENS = frozenset(
+    {
+        "na", "n/a", "n.a.", "nan", "null", "none", "nil", "?", "-", "--", "---", ".",
+        "#n/a", "#na", "#value!", "missing", "unknown", "not recorded", "not available",
+        "no data", "not known", "(blank)", "(missing)",
+    }
+)
+
+# A column is numeric when at least this share of its non-blank cells parse as numbers
+# (common practice, no source: "a few" stray cells are disguised blanks, many are not).
+NUMERIC_SHARE = 0.9
+DATETIME_SHARE = 0.95
+TEXT_MIN_UNIQUE = 20
+TEXT_UNIQUE_SHARE = 0.5
+
+# Formats tried for datetime columns, most specific first. Day-first and month-first orders are
+# both tried; when both read every value the column is reported as ambiguous.
+_DATE_FORMATS = (
+    "%Y-%m-%dT%H:%M:%S", "%Y-%m-%d %H:%M:%S", "%Y-%m-%dT%H:%M", "%Y-%m-%d %H:%M", "%Y-%m-%d",
+    "%Y/%m/%d %H:%M:%S", "%Y/%m/%d %H:%M", "%Y/%m/%d",
+    "%d/%m/%Y %H:%M:%S", "%d/%m/%Y %H:%M", "%d/%m/%Y",
+    "%m/%d/%Y %H:%M:%S", "%m/%d/%Y %H:%M", "%m/%d/%Y",
+    "%d.%m.%Y %H:%M:%S", "%d.%m.%Y %H:%M", "%d.%m.%Y",
+    "%d-%m-%Y %H:%M:%S", "%d-%m-%Y %H:%M", "%d-%m-%Y",
+)
+_SWAP = {"%d/%m/%Y": "%m/%d/%Y", "%m/%d/%Y": "%d/%m/%Y"}
+_NUMBER = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$")
+
+
+@dataclass
+class ColumnSpec:
+    """How one column is read: its kind and the cleaning applied to its cells.
+
+    Attributes
+    ----------
+    kind : str
+        One of :data:`KINDS`.
+    integer : bool
+        Numeric values are whole numbers (they are written back as integers).
+    decimals : int
+        Most decimal places seen in the column (imputed numbers are written with as many).
+    date_format : str or None
+        ``strptime`` format of a datetime column read from text.
+    ambiguous_formats : list of str
+        Other formats that also read every value (reported, never chosen silently).
+    tokens : dict
+        Non-blank cells turned into missing values, with their counts.
+    missing_codes : list
+        Values confirmed by the user as missing codes (``--missing-code``).
+    kind_source : {"inferred", "user"}
+        Whether the kind was inferred or given with ``--kind``.
+    """
+
+    kind: str
+    integer: bool = False
+    decimals: int = 0
+    date_format: str | None = None
+    ambiguous_formats: list[str] = field(default_factory=list)
+    tokens: dict[str, int] = field(default_factory=dict)
+    missing_codes: list[Any] = field(default_factory=list)
+    kind_source: str = "inferred"
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain JSON-ready dict."""
+        return asdict(self)
+
+    @classmethod
+    def from_dict(cls, data: dict[str, Any]) -> ColumnSpec:
+        """Inverse of :meth:`to_dict`; unknown keys are ignored."""
+        known = {k: data[k] for k in cls.__dataclass_fields__ if k in data}
+        return cls(**known)
+
+
+def _is_text(series: pd.Series) -> bool:
+    return pd.api.types.is_string_dtype(series.dtype) and not isinstance(
+        series.dtype, pd.CategoricalDtype
+    )
+
+
+def _blank_mask(values: pd.Series) -> np.ndarray:
+    """Blank or common missing token (text input)."""
+    stripped = values.str.strip()
+    lowered = stripped.str.lower()
+    return (stripped.eq("") | lowered.isin(MISSING_TOKENS) | values.isna()).to_numpy(bool)
+
+
+def parse_numbers(values: pd.Series, decimal: str = ".") -> pd.Series:
+    """Parse text to floats; cells that are not numbers become NaN.
+
+    Parameters
+    ----------
+    values : Series of str
+    decimal : {".", ","}
+        Decimal mark of the file.
+
+    Examples
+    --------
+    >>> parse_numbers(pd.Series(["1", "2,5", "x"]), decimal=",").tolist()
+    [1.0, 2.5, nan]
+    """
+    text = values.astype("str").str.strip()
+    if decimal == ",":
+        text = text.str.replace(",", ".", regex=False)
+    ok = text.str.match(_NUMBER).fillna(False).to_numpy(bool)
+    out = np.full(len(text), np.nan)
+    if ok.any():
+        out[ok] = pd.to_numeric(text[ok]).to_numpy(float)
+    return pd.Series(out, index=values.index)
+
+
+def _decimals(text: pd.Series) -> int:
+    parts = text.str.extract(r"[.,](\d+)$", expand=False)
+    lengths = parts.str.len().dropna()
+    return int(min(lengths.max(), 6)) if len(lengths) else 0
+
+
+def _tokens(raw: pd.Series, turned_missing: np.ndarray) -> dict[str, int]:
+    cells = raw[turned_missing].astype("str").str.strip()
+    cells = cells[cells != ""]
+    counts = cells.value_counts(sort=False)
+    return {str(k): int(v) for k, v in sorted(counts.items(), key=lambda kv: (-kv[1], kv[0]))}
+
+
+def _parse_dates(text: pd.Series, fmt: str) -> pd.Series:
+    return pd.to_datetime(text, format=fmt, errors="coerce")
+
+
+def _detect_date_format(text: pd.Series) -> tuple[str | None, list[str]]:
+    sample = text.head(500) if len(text) <= 2000 else text.sample(500, random_state=0)
+    best, best_share = None, 0.0
+    for fmt in _DATE_FORMATS:
+        share = float(_parse_dates(sample, fmt).notna().mean())
+        if share > best_share + 1e-12:
+            best, best_share = fmt, share
+        if share == 1.0:
+            break
+    if best is None or best_share < DATETIME_SHARE:
+        return None, []
+    ambiguous = []
+    for left, right in _SWAP.items():
+        if best.startswith(left):
+            alt = best.replace(left, right)
+            if float(_parse_dates(text, alt).notna().mean()) >= best_share:
+                ambiguous.append(alt)
+    return best, ambiguous
+
+
+def suspected_codes(values: np.ndarray) -> list[float]:
+    """Numbers that look like missing-value codes.
+
+    A value is suspected when it sits at an extreme of the column, repeats, is written with
+    nines only (9, 99, -999, ...) or is a negative code in an otherwise non-negative column,
+    and lies far outside the rest of the values (beyond 1.5 interquartile ranges, Tukey's fences).
+
+    Parameters
+    ----------
+    values : ndarray of float
+        Observed (non-NaN) values.
+
+    Examples
+    --------
+    >>> suspected_codes(np.array([1, 2, 3, 4, 5, 3, 2, 99, 99, 99], dtype=float))
+    [99.0]
+    """
+    values = values[np.isfinite(values)]
+    if len(values) < 10:
+        return []
+    found = []
+    for extreme in (values.min(), values.max()):
+        if extreme in found:
+            continue
+        count = int((values == extreme).sum())
+        if count < 2 or count > 0.5 * len(values):
+            continue
+        rest = values[values != extreme]
+        if len(rest) < 5:
+            continue
+        digits = str(int(abs(extreme))) if float(extreme).is_integer() else ""
+        nines = digits != "" and set(digits) == {"9"}
+        negative_code = extreme < 0 and rest.min() >= 0 and (nines or digits == "1")
+        if not (nines or negative_code):
+            continue
+        q1, q3 = np.percentile(rest, [25, 75])
+        fence = 1.5 * max(q3 - q1, 1e-12)
+        if extreme > q3 + fence or extreme < q1 - fence or negative_code:
+            found.append(float(extreme))
+    return sorted(found)
+
+
+def infer_spec(
+    raw: pd.Series,
+    *,
+    decimal: str = ".",
+    kind: str | None = None,
+    date_format: str | None = None,
+    missing_codes: list[Any] | None = None,
+) -> ColumnSpec:
+    """Infer a column's kind and cleaning from its raw cells.
+
+    Parameters
+    ----------
+    raw : Series
+        The column as read (text for CSV, typed for Parquet).
+    decimal : str
+        Decimal mark of the file.
+    kind : str, optional
+        Kind given by the user (``--kind``); inference then only fills in the details.
+    date_format : str, optional
+        Format given by the user (``--date-format``).
+    missing_codes : list, optional
+        Values confirmed as missing codes (``--missing-code``).
+
+    Returns
+    -------
+    ColumnSpec
+    """
+    if kind is not None and kind not in KINDS:
+        raise OptionError(f"--kind: unknown kind '{kind}'; choose one of: {', '.join(KINDS)}")
+    spec = ColumnSpec(kind="categorical", missing_codes=list(missing_codes or []),
+                      kind_source="user" if kind else "inferred")
+    if _is_text(raw):
+        blank = _blank_mask(raw)
+        present = raw[~blank].str.strip()
+        numbers = parse_numbers(present, decimal)
+        share = float(numbers.notna().mean()) if len(present) else 0.0
+        if kind == "numeric" or (kind is None and len(present) and share >= NUMERIC_SHARE):
+            spec.kind = "numeric"
+        elif kind == "datetime" or (kind is None and date_format is None and len(present)):
+            fmt, ambiguous = (date_format, []) if date_format else _detect_date_format(present)
+            if fmt is not None:
+                spec.kind, spec.date_format, spec.ambiguous_formats = "datetime", fmt, ambiguous
+            elif kind == "datetime":
+                raise OptionError(
+                    f"--kind {raw.name}=datetime: no known date format reads this column; "
+                    "give one with --date-format COLUMN=FORMAT"
+                )
+        elif date_format is not None:
+            spec.kind, spec.date_format = "datetime", date_format
+        if spec.kind == "numeric":
+            good = numbers.notna()
+            spec.integer = bool(good.any()) and bool(
+                np.all(np.mod(numbers[good].to_numpy(), 1) == 0)
+            ) and not present[good].str.contains(r"[.,]", regex=True).any()
+            spec.decimals = 0 if spec.integer else _decimals(present[good])
+        if kind is None and spec.kind == "categorical":
+            spec.kind = _label_kind(present, n_rows=len(raw))
+    else:
+        spec.kind = kind or _typed_kind(raw)
+        if spec.kind == "numeric" and pd.api.types.is_numeric_dtype(raw.dtype):
+            values = pd.to_numeric(raw, errors="coerce").dropna().to_numpy(float)
+            spec.integer = pd.api.types.is_integer_dtype(raw.dtype)
+            spec.decimals = 0 if spec.integer else 6
+            if kind is None and len(np.unique(values)) == 2:
+                spec.kind = "binary"
+    if kind is not None:
+        spec.kind = kind
+    if spec.kind == "numeric" and kind is None:
+        cleaned, _ = clean_column(raw, spec, decimal=decimal)
+        if cleaned.nunique(dropna=True) == 2:
+            spec.kind = "binary"
+    _, spec.tokens = clean_column(raw, spec, decimal=decimal)
+    return spec
+
+
+def _label_kind(present: pd.Series, n_rows: int) -> str:
+    n_unique = int(present.nunique())
+    if n_unique == 2:
+        return "binary"
+    if n_unique == len(present) == n_rows and n_rows >= 2:
+        return "identifier"
+    share = n_unique / max(len(present), 1)
+    if n_unique > TEXT_MIN_UNIQUE and share > TEXT_UNIQUE_SHARE:
+        return "text"
+    return "categorical"
+
+
+def _typed_kind(raw: pd.Series) -> str:
+    dtype = raw.dtype
+    if pd.api.types.is_bool_dtype(dtype):
+        return "binary"
+    if pd.api.types.is_datetime64_any_dtype(dtype):
+        return "datetime"
+    if isinstance(dtype, pd.CategoricalDtype):
+        return "binary" if len(raw.dropna().unique()) == 2 else "categorical"
+    if pd.api.types.is_numeric_dtype(dtype):
+        present = raw.dropna()
+        if pd.api.types.is_integer_dtype(dtype) and present.is_unique and len(present) == len(
+            raw
+        ) and len(raw) > 20 and bool((np.diff(np.sort(present.to_numpy())) == 1).all()):
+            return "identifier"
+        return "numeric"
+    return "categorical"
+
+
+def _code_mask(values: pd.Series, codes: list[Any], numeric: bool) -> np.ndarray:
+    if not codes:
+        return np.zeros(len(values), bool)
+    if numeric:
+        wanted = np.array([float(c) for c in codes])
+        return np.isin(values.to_numpy(float), wanted)
+    return values.astype("str").str.strip().isin([str(c) for c in codes]).to_numpy(bool)
+
+
+def clean_column(
+    raw: pd.Series, spec: ColumnSpec, *, decimal: str = "."
+) -> tuple[pd.Series, dict[str, int]]:
+    """Apply a spec to raw cells: typed values with every kind of blank as missing.
+
+    Returns
+    -------
+    values : Series
+        ``float64`` or ``Int64`` for numeric columns, ``datetime64`` for datetimes, the raw
+        text for text and identifier columns, and labels (text, or the file's type) otherwise.
+    tokens : dict
+        Non-blank cells that became missing, with their counts.
+
+    Examples
+    --------
+    >>> spec = ColumnSpec(kind="numeric", integer=True)
+    >>> values, tokens = clean_column(pd.Series(["3", "n/a", "", "7"]), spec)
+    >>> values.tolist(), tokens
+    ([3, <NA>, <NA>, 7], {'n/a': 1})
+    """
+    if spec.kind in ("text", "identifier"):
+        return raw, {}
+    text = _is_text(raw)
+    blank = _blank_mask(raw) if text else raw.isna().to_numpy(bool)
+    if spec.kind == "numeric":
+        if text:
+            values = parse_numbers(raw.where(~blank, ""), decimal)
+        else:
+            values = pd.to_numeric(raw, errors="coerce").astype(float)
+        codes = _code_mask(values, spec.missing_codes, numeric=True)
+        missing = values.isna().to_numpy(bool) | codes
+        values = values.mask(pd.Series(missing, index=raw.index))
+        values = values.round().astype("Int64") if spec.integer else values.astype(float)
+        return values, _tokens(raw, missing & ~codes) if text else {}
+    if spec.kind == "datetime":
+        if text:
+            values = _parse_dates(raw.where(~blank, "").str.strip(), spec.date_format or "ISO8601")
+        else:
+            values = pd.to_datetime(raw, errors="coerce")
+        missing = values.isna().to_numpy(bool)
+        return values, _tokens(raw, missing) if text else {}
+    # binary and categorical: labels
+    codes = _code_mask(raw, spec.missing_codes, numeric=False)
+    missing = blank | codes
+    if text:
+        values = raw.str.strip().where(~pd.Series(missing, index=raw.index))
+        return values.astype("str"), _tokens(raw, missing & ~codes)
+    return raw.mask(pd.Series(missing, index=raw.index)), {}
+
+
+def nan_safe_float(value: Any) -> float | None:
+    """``None`` for NaN, else a float (for JSON)."""
+    value = float(value)
+    return None if math.isnan(value) else value

@@ -1,0 +1,56 @@
+"""Fill methods and their registry.
+
+Adding a method: write one :class:`FillMethod` subclass in this package and add one line to
+:data:`METHODS`; the contract test in ``tests/test_methods_contract.py`` picks it up.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from imputelab.errors import OptionError
+from imputelab.methods.base import FillMethod
+from imputelab.methods.chained import ChainedBoostedFill, ChainedForestFill, ChainedLinearFill
+from imputelab.methods.knn import KNNFill
+from imputelab.methods.simple import ConstantFill, MeanFill, MedianFill, ModeFill
+
+__all__ = ["METHODS", "FillMethod", "get_method", "get_method_names"]
+
+METHODS: dict[str, type[FillMethod]] = {
+    "constant": ConstantFill,
+    "mean": MeanFill,
+    "median": MedianFill,
+    "mode": ModeFill,
+    "knn": KNNFill,
+    "chained-linear": ChainedLinearFill,
+    "chained-forest": ChainedForestFill,
+    "chained-boosted": ChainedBoostedFill,
+}
+
+
+def get_method_names() -> list[str]:
+    """Registered method names, simplest first."""
+    return sorted(METHODS, key=lambda n: (METHODS[n].simplicity, list(METHODS).index(n)))
+
+
+def get_method(name: str, **params: Any) -> FillMethod:
+    """A new, unfitted method by registry name.
+
+    Raises
+    ------
+    OptionError
+        For an unknown name or parameter.
+    """
+    if name not in METHODS:
+        raise OptionError(
+            f"unknown method '{name}'; choose from: {', '.join(get_method_names())}"
+        )
+    cls = METHODS[name]
+    valid = cls._get_param_names()
+    unknown = sorted(set(params) - set(valid))
+    if unknown:
+        raise OptionError(
+            f"method '{name}' has no parameter {', '.join(unknown)}; "
+            f"its parameters are: {', '.join(valid) or '(none)'}"
+        )
+    return cls(**params)

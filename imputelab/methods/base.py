@@ -1,0 +1,129 @@
+"""The contract every fill method keeps.
+
+A method works on a working frame (see :mod:`imputelab.encoding`): ``float64`` columns and
+unordered ``Categorical`` columns. ``fit(X, targets)`` learns how to fill the ``targets``
+columns (every other column may serve as a feature); ``transform(X)`` returns a copy of ``X``
+in which only the missing cells of those columns have changed.
+"""
+
+from __future__ import annotations
+
+import abc
+from collections.abc import Sequence
+from typing import Any, ClassVar
+
+import numpy as np
+import pandas as pd
+from sklearn.base import BaseEstimator
+from sklearn.utils.validation import check_is_fitted
+
+from imputelab.errors import DataError
+
+__all__ = ["FillMethod"]
+
+
+class FillMethod(BaseEstimator, abc.ABC):
+    """Base class of fill methods.
+
+    Class attributes
+    ----------------
+    name : str
+        Registry key, used on the command line, in plans and in reports.
+    kinds : frozenset of str
+        Column kinds the method can fill.
+    simplicity : int
+        Rank in the simplicity order (lower is simpler); ties are broken by score.
+    source : str
+        Where the method is published.
+    """
+
+    name: ClassVar[str]
+    kinds: ClassVar[frozenset[str]] = frozenset({"numeric", "binary", "categorical", "datetime"})
+    simplicity: ClassVar[int]
+    source: ClassVar[str] = ""
+
+    @classmethod
+    def unsupported_reason(cls, kind: str, dtype: Any = None) -> str | None:
+        """Why this method cannot fill a column of ``kind`` (``None`` when it can)."""
+        if kind not in cls.kinds:
+            return f"{cls.name} does not fill {kind} columns"
+        return None
+
+    def fit(self, X: pd.DataFrame, targets: Sequence[str] | None = None) -> FillMethod:
+        """Learn how to fill the ``targets`` columns of ``X``.
+
+        Parameters
+        ----------
+        X : DataFrame
+            Working frame.
+        targets : sequence of str, optional
+            Columns to fill; all columns by default.
+
+        Returns
+        -------
+        self
+        """
+        self._validate(X, targets)
+        self._fit(X, self.targets_)
+        return self
+
+    def transform(self, X: pd.DataFrame) -> pd.DataFrame:
+        """Fill the missing cells of the fitted target columns.
+
+        Returns
+        -------
+        DataFrame
+            A copy of ``X``; observed cells are unchanged.
+        """
+        check_is_fitted(self, "targets_")
+        self._check_columns(X)
+        return self._keep_observed(X, self._transform(X))
+
+    def fit_transform(self, X: pd.DataFrame, targets: Sequence[str] | None = None) -> pd.DataFrame:
+        """Fit on ``X`` and fill it."""
+        return self.fit(X, targets).transform(X)
+
+    # -- helpers for subclasses -------------------------------------------------------------
+    def _validate(self, X: pd.DataFrame, targets: Sequence[str] | None) -> None:
+        if not isinstance(X, pd.DataFrame):
+            raise DataError(f"{self.name}: expected a DataFrame, got {type(X).__name__}")
+        if len(X) == 0:
+            raise DataError(f"{self.name}: the table has no rows")
+        targets = list(X.columns if targets is None else targets)
+        unknown = [t for t in targets if t not in X.columns]
+        if unknown:
+            raise DataError(f"{self.name}: columns not in the table: {', '.join(unknown)}")
+        for name in targets:
+            reason = self.unsupported_reason(
+                "categorical" if isinstance(X[name].dtype, pd.CategoricalDtype) else "numeric"
+            )
+            if reason:
+                raise DataError(f"column '{name}': {reason}")
+        self.targets_ = targets
+        self.feature_names_in_ = np.asarray(X.columns, dtype=object)
+
+    def _check_columns(self, X: pd.DataFrame) -> None:
+        missing = [c for c in self.feature_names_in_ if c not in X.columns]
+        if missing:
+            raise DataError(f"{self.name}: columns seen in fit are missing: {', '.join(missing)}")
+
+    def _keep_observed(self, X: pd.DataFrame, filled: pd.DataFrame) -> pd.DataFrame:
+        out = X.copy()
+        for name in self.targets_:
+            holes = X[name].isna().to_numpy()
+            if holes.any():
+                column = out[name].copy()
+                new = filled[name]
+                if isinstance(column.dtype, pd.CategoricalDtype):
+                    extra = [c for c in new.cat.categories if c not in column.cat.categories]
+                    if extra:
+                        column = column.cat.add_categories(extra)
+                column.iloc[np.flatnonzero(holes)] = new.iloc[np.flatnonzero(holes)]
+                out[name] = column
+        return out
+
+    @abc.abstractmethod
+    def _fit(self, X: pd.DataFrame, targets: list[str]) -> None: ...
+
+    @abc.abstractmethod
+    def _transform(self, X: pd.DataFrame) -> pd.DataFrame: ...

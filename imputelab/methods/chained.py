@@ -1,0 +1,294 @@
+"""Chained equations: each column in turn is predicted from all the others, for a few sweeps.
+
+The chain follows the fully conditional specification of van Buuren & Groothuis-Oudshoorn
+(2011, *Journal of Statistical Software* 45(3)): start from a simple fill, then visit the
+columns from the least to the most incomplete, fit a model of the column on the rows where it
+is observed and replace its holes with the model's predictions; repeat. Three model families:
+
+``chained-linear``   Bayesian ridge regression / multinomial logistic regression on
+                     standardised numbers and one-hot labels (predictive means).
+``chained-forest``   random forests on the current fill, in the style of missForest
+                     (Stekhoven & Bühlmann 2012, *Bioinformatics* 28(1):112-118).
+``chained-boosted``  LightGBM gradient-boosted trees (Ke et al. 2017, NeurIPS) with small trees
+                     and early stopping; the first sweep sees the raw holes, which LightGBM
+                     handles natively, later sweeps the current fill.
+
+Every fitted model is kept, so ``transform`` on new rows replays the same chain.
+"""
+
+from __future__ import annotations
+
+import warnings
+from typing import Any
+
+import lightgbm as lgb
+import numpy as np
+import pandas as pd
+from sklearn.ensemble import RandomForestClassifier, RandomForestRegressor
+from sklearn.exceptions import ConvergenceWarning
+from sklearn.linear_model import BayesianRidge, LogisticRegression
+from sklearn.utils import check_random_state
+
+from imputelab.encoding import is_categorical
+from imputelab.methods._design import Design, column_stats
+from imputelab.methods.base import FillMethod
+from imputelab.methods.simple import most_frequent
+
+__all__ = ["ChainedBoostedFill", "ChainedForestFill", "ChainedLinearFill"]
+
+
+class _Constant:
+    """Stands in for a model when a column has fewer than two distinct observed values."""
+
+    def __init__(self, value: Any):
+        self.value = value
+
+    def predict(self, matrix: Any) -> np.ndarray:
+        return np.full(len(matrix), self.value)
+
+
+class _ChainedFill(FillMethod):
+    """Shared chain; subclasses choose the design and the per-column model."""
+
+    design_mode: str = "onehot"
+    standardise: bool = True
+    raw_first_sweep: bool = False
+
+    def __init__(self, n_sweeps: int = 3, random_state=None):
+        self.n_sweeps = n_sweeps
+        self.random_state = random_state
+
+    # -- hooks ---------------------------------------------------------------------------
+    def _model(self, categorical: bool, seed: int, n_rows: int) -> Any:
+        raise NotImplementedError
+
+    def _fit_model(self, model: Any, features: Any, target: np.ndarray, seed: int) -> Any:
+        model.fit(features, target)
+        return model
+
+    # -- chain ---------------------------------------------------------------------------
+    def _start(self, X: pd.DataFrame) -> pd.DataFrame:
+        out = X.copy()
+        for name, value in self.start_.items():
+            if value is not None and out[name].isna().any():
+                out[name] = out[name].fillna(value)
+        return out
+
+    def _features(self, state: pd.DataFrame, design: Design | None, name: str,
+                  rows: np.ndarray, raw: pd.DataFrame | None) -> Any:
+        if design is None:  # LightGBM takes the frame itself
+            source = raw if raw is not None else state
+            return source.drop(columns=[name]).iloc[np.flatnonzero(rows)]
+        return design.matrix(exclude=name, rows=rows)
+
+    def _run(self, X: pd.DataFrame, fitting: bool) -> pd.DataFrame:
+        missing = {name: X[name].isna().to_numpy() for name in self.targets_}
+        state = self._start(X)
+        use_design = self.design_mode != "frame"
+        design = Design(state, self.design_mode, self.stats_) if use_design else None
+        if fitting:
+            seeds = check_random_state(self.random_state).randint(
+                0, 2**31 - 1, size=(self.n_sweeps, len(self.order_)))
+            self.models_ = []
+        for sweep in range(self.n_sweeps):
+            raw = X if (self.raw_first_sweep and sweep == 0 and not use_design) else None
+            if fitting:
+                self.models_.append({})
+            for position, name in enumerate(self.order_):
+                holes = missing[name]
+                categorical = is_categorical(X[name])
+                if fitting:
+                    observed = ~holes
+                    features = self._features(state, design, name, observed, raw)
+                    target = self._target(X[name], observed)
+                    model = self._fit_column(categorical, features, target,
+                                             int(seeds[sweep, position]))
+                    self.models_[sweep][name] = model
+                else:
+                    model = self.models_[sweep][name]
+                if not holes.any():
+                    continue
+                features = self._features(state, design, name, holes, raw)
+                predicted = model.predict(features)
+                column = state[name].copy()
+                if categorical:
+                    codes = np.asarray(predicted).astype(int)
+                    column.iloc[np.flatnonzero(holes)] = pd.Categorical.from_codes(
+                        codes, categories=column.cat.categories)
+                else:
+                    column.iloc[np.flatnonzero(holes)] = np.asarray(predicted, float)
+                state[name] = column
+                if design is not None:
+                    design.update(state[name])
+        return state
+
+    @staticmethod
+    def _target(column: pd.Series, observed: np.ndarray) -> np.ndarray:
+        if is_categorical(column):
+            return column.cat.codes.to_numpy()[observed]
+        return column.to_numpy(float)[observed]
+
+    def _fit_column(self, categorical: bool, features: Any, target: np.ndarray, seed: int) -> Any:
+        if len(target) < 2 or len(np.unique(target)) < 2:
+            if len(target) == 0:
+                return _Constant(0 if categorical else np.nan)
+            values, counts = np.unique(target, return_counts=True)
+            return _Constant(values[np.argmax(counts)] if categorical else float(target.mean()))
+        model = self._model(categorical, seed, len(target))
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", ConvergenceWarning)
+            warnings.simplefilter("ignore", UserWarning)
+            return self._fit_model(model, features, target, seed)
+
+    def _fit(self, X: pd.DataFrame, targets: list[str]) -> None:
+        counts = {name: int(X[name].isna().sum()) for name in targets}
+        self.order_ = sorted(targets, key=lambda n: (counts[n], targets.index(n)))
+        self.stats_ = column_stats(X) if self.standardise else None
+        self.start_ = {}
+        for name in X.columns:
+            column = X[name]
+            if is_categorical(column):
+                value = most_frequent(column)
+                self.start_[name] = None if value is np.nan else value
+            else:
+                values = column.to_numpy(float)
+                ok = np.isfinite(values)
+                self.start_[name] = float(values[ok].mean()) if ok.any() else 0.0
+        self._fitted_state = self._run(X, fitting=True)
+
+    def _transform(self, X: pd.DataFrame) -> pd.DataFrame:
+        return self._run(X, fitting=False)
+
+    def fit_transform(self, X: pd.DataFrame, targets=None) -> pd.DataFrame:
+        """Fit on ``X`` and return its fill (the chain's own last state; no second pass)."""
+        self.fit(X, targets)
+        state, self._fitted_state = self._fitted_state, None
+        return self._keep_observed(X, state)
+
+    def fit(self, X: pd.DataFrame, targets=None) -> _ChainedFill:
+        """Fit the chain; see :meth:`FillMethod.fit`."""
+        super().fit(X, targets)
+        return self
+
+
+class ChainedLinearFill(_ChainedFill):
+    """Chained Bayesian ridge (numbers) and multinomial logistic regression (labels).
+
+    Parameters
+    ----------
+    n_sweeps : int, default=5
+        Passes over the columns.
+    random_state : int, optional
+    """
+
+    name = "chained-linear"
+    simplicity = 3
+    source = ("van Buuren & Groothuis-Oudshoorn (2011), J. Stat. Softw. 45(3); "
+              "Bayesian ridge: Tipping (2001), JMLR 1:211-244")
+
+    def __init__(self, n_sweeps: int = 5, random_state=None):
+        super().__init__(n_sweeps=n_sweeps, random_state=random_state)
+
+    def _model(self, categorical: bool, seed: int, n_rows: int) -> Any:
+        if categorical:
+            return LogisticRegression(max_iter=300)
+        return BayesianRidge()
+
+
+class ChainedForestFill(_ChainedFill):
+    """Chained random forests on integer-coded labels and raw numbers.
+
+    Parameters
+    ----------
+    n_sweeps : int, default=3
+        Passes over the columns (3-4 reach the accuracy of 10, at a third of the cost).
+    n_estimators : int, default=50
+    max_rows : int, default=4000
+        Each tree is grown on a bootstrap draw of at most this many rows.
+    random_state : int, optional
+    """
+
+    name = "chained-forest"
+    simplicity = 4
+    source = "Stekhoven & Bühlmann (2012), Bioinformatics 28(1):112-118"
+    design_mode = "codes"
+    standardise = False
+
+    def __init__(self, n_sweeps: int = 3, n_estimators: int = 50, max_rows: int = 4000,
+                 random_state=None):
+        super().__init__(n_sweeps=n_sweeps, random_state=random_state)
+        self.n_estimators = n_estimators
+        self.max_rows = max_rows
+
+    def _model(self, categorical: bool, seed: int, n_rows: int) -> Any:
+        kwargs = dict(n_estimators=self.n_estimators, n_jobs=1, random_state=seed,
+                      max_samples=min(1.0, self.max_rows / n_rows), min_samples_leaf=1)
+        if categorical:
+            return RandomForestClassifier(max_features="sqrt", **kwargs)
+        return RandomForestRegressor(max_features=0.5, **kwargs)
+
+
+class ChainedBoostedFill(_ChainedFill):
+    """Chained LightGBM models with native missing-value and categorical handling.
+
+    Settings for small tables: few leaves, a floor on leaf size, row and column subsampling,
+    and the number of trees chosen by early stopping on a held-out share of the column's
+    observed rows.
+
+    Parameters
+    ----------
+    n_sweeps : int, default=2
+    max_trees : int, default=300
+    learning_rate : float, default=0.1
+    num_leaves : int, default=7
+    min_child_samples : int, default=10
+    holdout : float, default=0.15
+        Share of observed rows held out for early stopping.
+    random_state : int, optional
+    """
+
+    name = "chained-boosted"
+    simplicity = 5
+    source = "Ke et al. (2017), LightGBM, NeurIPS 30; chained as van Buuren (2011)"
+    design_mode = "frame"
+    standardise = False
+    raw_first_sweep = True
+
+    def __init__(self, n_sweeps: int = 2, max_trees: int = 300, learning_rate: float = 0.1,
+                 num_leaves: int = 7, min_child_samples: int = 10, holdout: float = 0.15,
+                 random_state=None):
+        super().__init__(n_sweeps=n_sweeps, random_state=random_state)
+        self.max_trees = max_trees
+        self.learning_rate = learning_rate
+        self.num_leaves = num_leaves
+        self.min_child_samples = min_child_samples
+        self.holdout = holdout
+
+    def _model(self, categorical: bool, seed: int, n_rows: int) -> Any:
+        params = dict(
+            n_estimators=self.max_trees, learning_rate=self.learning_rate,
+            num_leaves=self.num_leaves, min_child_samples=self.min_child_samples,
+            subsample=0.8, subsample_freq=1, colsample_bytree=0.8, reg_lambda=1.0,
+            deterministic=True, force_row_wise=True, n_jobs=1, verbose=-1, random_state=seed,
+        )
+        return lgb.LGBMClassifier(**params) if categorical else lgb.LGBMRegressor(**params)
+
+    def _fit_model(self, model: Any, features: Any, target: np.ndarray, seed: int) -> Any:
+        n = len(target)
+        n_valid = int(round(self.holdout * n))
+        if n_valid < 20 or n - n_valid < 20:
+            model.set_params(n_estimators=min(self.max_trees, 100))
+            model.fit(features, target)
+            return model
+        order = np.random.default_rng(seed).permutation(n)
+        valid, train = order[:n_valid], order[n_valid:]
+        if isinstance(model, lgb.LGBMClassifier):
+            # every class must be seen in training for the held-out loss to be defined
+            seen = np.isin(target[valid], np.unique(target[train]))
+            valid = valid[seen]
+        model.fit(
+            features.iloc[train], target[train],
+            eval_X=features.iloc[valid], eval_y=target[valid],
+            callbacks=[lgb.early_stopping(20, verbose=False)],
+        )
+        return model
