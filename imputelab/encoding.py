@@ -19,9 +19,9 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-__all__ = ["DERIVED_SEP", "Encoding", "is_categorical", "with_derived"]
+__all__ = ["DERIVED_SEP", "Encoding", "derived_from", "is_categorical", "with_derived"]
 
-DERIVED_SEP = "::"
+DERIVED_SEP = "__"
 _COMPONENTS = ("year", "month", "dayofweek", "hour")
 _NS_PER_S = 1_000_000_000
 
@@ -148,7 +148,7 @@ class Encoding:
         for name, kind in self.kinds.items():
             if name not in working.columns:
                 continue
-            holes = typed[name].isna().to_numpy()
+            holes = typed[name].isna().to_numpy().copy()
             filled = working[name]
             holes &= filled.notna().to_numpy()
             if not holes.any():
@@ -193,8 +193,8 @@ def _assign(column: pd.Series, holes: np.ndarray, values: np.ndarray) -> pd.Seri
 def with_derived(working: pd.DataFrame, kinds: Mapping[str, str]) -> pd.DataFrame:
     """Add datetime component and duration columns (features only) to a working frame.
 
-    Named ``COLUMN::year``, ``COLUMN::month``, ``COLUMN::dayofweek``, ``COLUMN::hour`` and
-    ``LATER::minus::EARLIER`` (hours between two datetime columns, in column order).
+    Named ``COLUMN__year``, ``COLUMN__month``, ``COLUMN__dayofweek``, ``COLUMN__hour`` and
+    ``LATER__minus__EARLIER`` (hours between two datetime columns, in column order).
     """
     stamps = [name for name, kind in kinds.items() if kind == "datetime" and name in working]
     if not stamps:
@@ -212,3 +212,10 @@ def with_derived(working: pd.DataFrame, kinds: Mapping[str, str]) -> pd.DataFram
             hours = (working[later].to_numpy(float) - working[first].to_numpy(float)) / 3600.0
             extra[f"{later}{DERIVED_SEP}minus{DERIVED_SEP}{first}"] = hours
     return pd.concat([working, pd.DataFrame(extra, index=working.index)], axis=1)
+
+
+def derived_from(name: str, columns: Sequence[str]) -> list[str]:
+    """The derived feature columns made from ``name`` (never features of ``name``'s own model:
+    at a hole of ``name`` they hold nothing but the start fill)."""
+    prefix, suffix = f"{name}{DERIVED_SEP}", f"{DERIVED_SEP}minus{DERIVED_SEP}{name}"
+    return [c for c in columns if c.startswith(prefix) or c.endswith(suffix)]

@@ -8,6 +8,8 @@ block after filling it without rebuilding the rest.
 
 from __future__ import annotations
 
+from collections.abc import Collection
+
 import numpy as np
 import pandas as pd
 
@@ -71,9 +73,9 @@ class Design:
         """Replace one column's block."""
         self.blocks[column.name] = self.block(column)
 
-    def matrix(self, exclude: str | None = None, rows: np.ndarray | None = None) -> np.ndarray:
-        """The design matrix of every column but ``exclude``, optionally for some rows."""
-        parts = [self.blocks[n] for n in self.names if n != exclude]
+    def matrix(self, exclude: Collection[str] = (), rows: np.ndarray | None = None) -> np.ndarray:
+        """The design matrix of every column but those in ``exclude``, optionally for some rows."""
+        parts = [self.blocks[n] for n in self.names if n not in exclude]
         if rows is not None:
             parts = [p[rows] for p in parts]
         if not parts:

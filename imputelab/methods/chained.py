@@ -24,12 +24,11 @@ from typing import Any
 import lightgbm as lgb
 import numpy as np
 import pandas as pd
-from sklearn.ensemble import RandomForestClassifier, RandomForestRegressor
 from sklearn.exceptions import ConvergenceWarning
 from sklearn.linear_model import BayesianRidge, LogisticRegression
 from sklearn.utils import check_random_state
 
-from imputelab.encoding import is_categorical
+from imputelab.encoding import derived_from, is_categorical
 from imputelab.methods._design import Design, column_stats
 from imputelab.methods.base import FillMethod
 from imputelab.methods.simple import most_frequent
@@ -45,6 +44,22 @@ class _Constant:
 
     def predict(self, matrix: Any) -> np.ndarray:
         return np.full(len(matrix), self.value)
+
+
+class _Standardised:
+    """Fit a regressor on the standardised target (Bayesian ridge's priors are not scale-free:
+    on timestamps in seconds its default priors shrink every weight to nothing)."""
+
+    def __init__(self, model: Any):
+        self.model = model
+
+    def fit(self, features: Any, target: np.ndarray) -> _Standardised:
+        self.mean_, self.std_ = float(target.mean()), float(target.std()) or 1.0
+        self.model.fit(features, (target - self.mean_) / self.std_)
+        return self
+
+    def predict(self, features: Any) -> np.ndarray:
+        return self.model.predict(features) * self.std_ + self.mean_
 
 
 class _ChainedFill(FillMethod):
@@ -76,10 +91,11 @@ class _ChainedFill(FillMethod):
 
     def _features(self, state: pd.DataFrame, design: Design | None, name: str,
                   rows: np.ndarray, raw: pd.DataFrame | None) -> Any:
+        exclude = self.excluded_[name]
         if design is None:  # LightGBM takes the frame itself
             source = raw if raw is not None else state
-            return source.drop(columns=[name]).iloc[np.flatnonzero(rows)]
-        return design.matrix(exclude=name, rows=rows)
+            return source.drop(columns=exclude).iloc[np.flatnonzero(rows)]
+        return design.matrix(exclude=exclude, rows=rows)
 
     def _run(self, X: pd.DataFrame, fitting: bool) -> pd.DataFrame:
         missing = {name: X[name].isna().to_numpy() for name in self.targets_}
@@ -102,7 +118,8 @@ class _ChainedFill(FillMethod):
                     features = self._features(state, design, name, observed, raw)
                     target = self._target(X[name], observed)
                     model = self._fit_column(categorical, features, target,
-                                             int(seeds[sweep, position]))
+                                             int(seeds[sweep, position]),
+                                             self._fallback(X[name]))
                     self.models_[sweep][name] = model
                 else:
                     model = self.models_[sweep][name]
@@ -128,10 +145,18 @@ class _ChainedFill(FillMethod):
             return column.cat.codes.to_numpy()[observed]
         return column.to_numpy(float)[observed]
 
-    def _fit_column(self, categorical: bool, features: Any, target: np.ndarray, seed: int) -> Any:
+    def _fallback(self, column: pd.Series) -> Any:
+        """What a column with no observed value is filled with: its start value (as a code)."""
+        value = self.start_[column.name]
+        if is_categorical(column):
+            return 0 if value is None else int(list(column.cat.categories).index(value))
+        return value
+
+    def _fit_column(self, categorical: bool, features: Any, target: np.ndarray, seed: int,
+                    fallback: Any) -> Any:
         if len(target) < 2 or len(np.unique(target)) < 2:
             if len(target) == 0:
-                return _Constant(0 if categorical else np.nan)
+                return _Constant(fallback)
             values, counts = np.unique(target, return_counts=True)
             return _Constant(values[np.argmax(counts)] if categorical else float(target.mean()))
         model = self._model(categorical, seed, len(target))
@@ -143,13 +168,17 @@ class _ChainedFill(FillMethod):
     def _fit(self, X: pd.DataFrame, targets: list[str]) -> None:
         counts = {name: int(X[name].isna().sum()) for name in targets}
         self.order_ = sorted(targets, key=lambda n: (counts[n], targets.index(n)))
+        self.excluded_ = {n: [n, *derived_from(n, list(X.columns))] for n in targets}
         self.stats_ = column_stats(X) if self.standardise else None
         self.start_ = {}
         for name in X.columns:
             column = X[name]
             if is_categorical(column):
                 value = most_frequent(column)
-                self.start_[name] = None if value is np.nan else value
+                if value is np.nan:  # nothing observed: the first label, if there is one
+                    categories = column.cat.categories
+                    value = categories[0] if len(categories) else None
+                self.start_[name] = value
             else:
                 values = column.to_numpy(float)
                 ok = np.isfinite(values)
@@ -192,40 +221,52 @@ class ChainedLinearFill(_ChainedFill):
     def _model(self, categorical: bool, seed: int, n_rows: int) -> Any:
         if categorical:
             return LogisticRegression(max_iter=300)
-        return BayesianRidge()
+        return _Standardised(BayesianRidge())
 
 
 class ChainedForestFill(_ChainedFill):
-    """Chained random forests on integer-coded labels and raw numbers.
+    """Chained random forests, in the style of missForest.
+
+    Each column's forest (Breiman 2001, *Machine Learning* 45:5-32) is grown with LightGBM's
+    histogram trees in random-forest mode (``boosting="rf"``): every tree on a random 63% of the
+    rows, every split among a random share of the features, predictions averaged. This keeps
+    the method's behaviour at a fraction of the cost of exact-split forests.
 
     Parameters
     ----------
     n_sweeps : int, default=3
         Passes over the columns (3-4 reach the accuracy of 10, at a third of the cost).
-    n_estimators : int, default=50
-    max_rows : int, default=4000
-        Each tree is grown on a bootstrap draw of at most this many rows.
+    n_trees : int, default=60
+    num_leaves : int, default=127
+    min_child_samples : int, default=3
+    feature_share : float, default=0.6
+        Share of the features each split may choose from.
     random_state : int, optional
     """
 
     name = "chained-forest"
     simplicity = 4
-    source = "Stekhoven & Bühlmann (2012), Bioinformatics 28(1):112-118"
-    design_mode = "codes"
+    source = ("Stekhoven & Bühlmann (2012), Bioinformatics 28(1):112-118; "
+              "Breiman (2001), Machine Learning 45:5-32")
+    design_mode = "frame"
     standardise = False
 
-    def __init__(self, n_sweeps: int = 3, n_estimators: int = 50, max_rows: int = 4000,
-                 random_state=None):
+    def __init__(self, n_sweeps: int = 3, n_trees: int = 60, num_leaves: int = 127,
+                 min_child_samples: int = 3, feature_share: float = 0.6, random_state=None):
         super().__init__(n_sweeps=n_sweeps, random_state=random_state)
-        self.n_estimators = n_estimators
-        self.max_rows = max_rows
+        self.n_trees = n_trees
+        self.num_leaves = num_leaves
+        self.min_child_samples = min_child_samples
+        self.feature_share = feature_share
 
     def _model(self, categorical: bool, seed: int, n_rows: int) -> Any:
-        kwargs = dict(n_estimators=self.n_estimators, n_jobs=1, random_state=seed,
-                      max_samples=min(1.0, self.max_rows / n_rows), min_samples_leaf=1)
-        if categorical:
-            return RandomForestClassifier(max_features="sqrt", **kwargs)
-        return RandomForestRegressor(max_features=0.5, **kwargs)
+        params = dict(
+            boosting_type="rf", n_estimators=self.n_trees, num_leaves=self.num_leaves,
+            min_child_samples=self.min_child_samples, subsample=0.632, subsample_freq=1,
+            feature_fraction_bynode=self.feature_share, reg_lambda=0.0,
+            deterministic=True, force_row_wise=True, n_jobs=1, verbose=-1, random_state=seed,
+        )
+        return lgb.LGBMClassifier(**params) if categorical else lgb.LGBMRegressor(**params)
 
 
 class ChainedBoostedFill(_ChainedFill):

@@ -1,0 +1,295 @@
+"""``fill``: apply a plan to a table: the plan's cleaning, then its methods, hole by hole."""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from imputelab.encoding import with_derived
+from imputelab.errors import DataError, PlanError
+from imputelab.experiment import derive_seed
+from imputelab.io import Table
+from imputelab.kinds import ColumnSpec, clean_column
+from imputelab.methods import get_method
+from imputelab.plan import Plan
+from imputelab.prepare import working_setup
+
+__all__ = ["FillReport", "check_plan", "clean_with_plan", "fill_frame", "fill_table"]
+
+
+@dataclass
+class FillReport:
+    """What a fill did.
+
+    Attributes
+    ----------
+    filled : dict
+        Cells filled per imputed column.
+    dropped, excluded : list of str
+    new_tokens : dict
+        Cells that became missing in this file but were not seen when the plan was made.
+    warnings : list of str
+    """
+
+    filled: dict[str, int] = field(default_factory=dict)
+    methods: dict[str, str] = field(default_factory=dict)
+    dropped: list[str] = field(default_factory=list)
+    excluded: list[str] = field(default_factory=list)
+    new_tokens: dict[str, dict[str, int]] = field(default_factory=dict)
+    warnings: list[str] = field(default_factory=list)
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready dict."""
+        return {"filled": self.filled, "methods": self.methods, "dropped": self.dropped,
+                "excluded": self.excluded, "new_tokens": self.new_tokens,
+                "warnings": self.warnings}
+
+
+def _specs(plan: Plan) -> dict[str, ColumnSpec]:
+    out = {}
+    for name, col in plan.columns.items():
+        spec = ColumnSpec.from_dict(col.cleaning or {})
+        spec.kind = col.kind  # a user's edit of the kind wins
+        out[name] = spec
+    return out
+
+
+def check_plan(plan: Plan, table: Table, *, force: bool = False) -> list[str]:
+    """Check that a plan fits a table.
+
+    Raises
+    ------
+    PlanError
+        When the fingerprint or the columns differ (unless ``force``).
+
+    Returns
+    -------
+    list of str
+        Warnings (what ``force`` let through).
+    """
+    warnings = []
+    columns = list(table.frame.columns)
+    planned = list(plan.columns)
+    missing = [c for c in planned if c not in columns]
+    extra = [c for c in columns if c not in planned]
+    where = f"--plan was made from '{plan.source.get('file')}'"
+    if missing or extra:
+        parts = []
+        if missing:
+            parts.append(f"missing from the file: {', '.join(missing)}")
+        if extra:
+            parts.append(f"not in the plan: {', '.join(extra)}")
+        message = f"{where} and its columns do not match '{table.path}' ({'; '.join(parts)})"
+        if not force:
+            raise PlanError(message + "; run score on this file, or pass --force to fill the "
+                                      "planned columns present and pass the others through")
+        warnings.append(message)
+    fingerprint = plan.source.get("fingerprint", "")
+    if fingerprint and fingerprint != f"sha256:{table.fingerprint}":
+        message = (f"{where}, and '{table.path}' has different content "
+                   f"(fingerprint {fingerprint[:19]}... vs sha256:{table.fingerprint[:12]}...)")
+        if not force:
+            raise PlanError(message + "; pass --force to fill it with the same plan (methods are "
+                                      "fitted on this file), or run score on it")
+        warnings.append(message)
+    return warnings
+
+
+def clean_with_plan(table: Table, plan: Plan) -> tuple[pd.DataFrame, dict[str, dict[str, int]]]:
+    """Read a table's cells exactly as the plan says: its kinds, codes and date formats.
+
+    Returns
+    -------
+    typed : DataFrame
+        Columns present in both the plan and the table, in table order, plus unplanned
+        columns as they are.
+    new_tokens : dict
+        Per column, tokens turned into missing that the plan had not recorded.
+    """
+    specs = _specs(plan)
+    typed, new_tokens = {}, {}
+    for name in table.frame.columns:
+        if name not in specs:
+            typed[name] = table.frame[name]
+            continue
+        values, tokens = clean_column(table.frame[name], specs[name], decimal=table.decimal)
+        typed[name] = values
+        unseen = {t: c for t, c in tokens.items() if t not in specs[name].tokens}
+        if unseen:
+            new_tokens[name] = unseen
+    return pd.DataFrame(typed, index=table.frame.index), new_tokens
+
+
+def _groups(plan: Plan, targets: list[str]) -> dict[str, tuple[str, dict[str, Any], list[str]]]:
+    groups: dict[str, tuple[str, dict[str, Any], list[str]]] = {}
+    for name in targets:
+        col = plan.columns[name]
+        key = f"{col.method}|{json.dumps(col.params, sort_keys=True)}"
+        groups.setdefault(key, (col.method, dict(col.params), []))[2].append(name)
+    return groups
+
+
+def fill_frame(
+    typed: pd.DataFrame,
+    plan: Plan,
+    *,
+    fit_on: pd.DataFrame | None = None,
+    report: FillReport | None = None,
+) -> pd.DataFrame:
+    """Fill a cleaned frame by the plan.
+
+    Parameters
+    ----------
+    typed : DataFrame
+        Cleaned table (see :func:`clean_with_plan`).
+    plan : Plan
+    fit_on : DataFrame, optional
+        Cleaned reference table on which the methods are fitted (default: ``typed``).
+    report : FillReport, optional
+        Filled in with what was done.
+
+    Returns
+    -------
+    DataFrame
+        ``typed`` without the dropped columns; every hole of the imputed columns filled; every
+        other cell, the column order and the dtypes unchanged.
+    """
+    report = report if report is not None else FillReport()
+    specs = _specs(plan)
+    present = {n: c for n, c in plan.columns.items() if n in typed.columns}
+    actions = {n: c.action for n, c in present.items()}
+    target = plan.settings.get("target")
+    use_target = bool(plan.settings.get("use_target"))
+    fit_frame = typed if fit_on is None else fit_on
+    targets, encoding = working_setup(fit_frame, specs, actions, target=target,
+                                      use_target=use_target)
+    for name in targets:
+        values = fit_frame[name]
+        if values.notna().sum() == 0:
+            raise DataError(f"column '{name}' has no observed value to learn a fill from; "
+                            f"set its action to \"drop\" in the plan")
+    fit_working = encoding.encode(fit_frame)
+    work = fit_working if fit_on is None else encoding.encode(typed)
+    seed = int(plan.settings.get("seed", 0))
+    filled = work.copy()
+    for method_name, params, columns in _groups(plan, targets).values():
+        try:
+            method = get_method(method_name, **params)
+        except Exception as exc:
+            raise PlanError(f"plan: column '{columns[0]}': {exc}") from None
+        if "random_state" in method.get_params():
+            method.set_params(random_state=derive_seed(seed, "fill", method_name))
+        joint = [n for n in targets
+                 if method.unsupported_reason(encoding.kinds[n], typed[n].dtype) is None]
+        bad = [n for n in columns if n not in joint]
+        if bad:
+            raise PlanError(
+                f"plan: column '{bad[0]}': {method.unsupported_reason(encoding.kinds[bad[0]], typed[bad[0]].dtype)}; "  # noqa: E501
+                "choose another method in the plan"
+            )
+        if fit_on is None:
+            out = method.fit_transform(with_derived(fit_working, encoding.kinds), joint)
+        else:
+            method.fit(with_derived(fit_working, encoding.kinds), joint)
+            out = method.transform(with_derived(work, encoding.kinds))
+        for name in columns:
+            filled[name] = out[name]
+            report.methods[name] = method_name
+    result = encoding.decode(filled, typed)
+    for name in targets:
+        report.filled[name] = int(typed[name].isna().sum() - result[name].isna().sum())
+    report.dropped = [n for n, a in actions.items() if a == "drop"]
+    report.excluded = [n for n, a in actions.items() if a == "exclude"]
+    return result.drop(columns=report.dropped)
+
+
+def render_text(
+    table: Table, before: pd.DataFrame, after: pd.DataFrame, specs: Mapping[str, ColumnSpec]
+) -> pd.DataFrame:
+    """The original text of a CSV table with only the filled cells rewritten.
+
+    Observed cells keep their exact text; filled numbers are written with the column's own
+    number of decimals and decimal mark, timestamps in the column's own format.
+    """
+    out = table.frame[list(after.columns)].copy()
+    for name in after.columns:
+        if name not in specs or name not in before.columns:
+            continue
+        holes = before[name].isna().to_numpy() & after[name].notna().to_numpy()
+        if not holes.any():
+            continue
+        values = after[name].to_numpy()[holes]
+        text = [_format(v, specs[name], table.decimal) for v in values]
+        column = out[name].copy()
+        column.iloc[np.flatnonzero(holes)] = text
+        out[name] = column
+    return out
+
+
+def _format(value: Any, spec: ColumnSpec, decimal: str) -> str:
+    if spec.kind == "datetime":
+        stamp = pd.Timestamp(value)
+        return stamp.strftime(spec.date_format) if spec.date_format else stamp.isoformat()
+    if spec.kind == "numeric" or isinstance(value, float | np.floating | int | np.integer):
+        if spec.integer or (isinstance(value, int | np.integer)):
+            return str(int(round(float(value))))
+        text = f"{float(value):.{spec.decimals}f}" if spec.decimals else repr(float(value))
+        return text.replace(".", ",") if decimal == "," else text
+    return str(value)
+
+
+def fill_table(
+    table: Table,
+    plan: Plan,
+    *,
+    fit_on: Table | None = None,
+    force: bool = False,
+    text_output: bool = True,
+) -> tuple[pd.DataFrame, FillReport]:
+    """Clean, check and fill a table by a plan.
+
+    Parameters
+    ----------
+    table : Table
+    plan : Plan
+    fit_on : Table, optional
+        Reference table to fit the methods on (``--fit-on``); its fingerprint is not checked.
+    force : bool
+        Proceed past a fingerprint or column mismatch (``--force``).
+    text_output : bool
+        For CSV input, return the original text with filled cells rewritten (for CSV output);
+        otherwise the typed frame (for Parquet output).
+
+    Returns
+    -------
+    frame : DataFrame
+        Ready to write.
+    report : FillReport
+    """
+    report = FillReport()
+    report.warnings.extend(check_plan(plan, table, force=force or fit_on is not None))
+    typed, report.new_tokens = clean_with_plan(table, plan)
+    for name, tokens in report.new_tokens.items():
+        shown = ", ".join(f"'{t}' ({c})" for t, c in list(tokens.items())[:5])
+        report.warnings.append(f"column '{name}': new cells read as missing: {shown}")
+    reference = None
+    if fit_on is not None:
+        reference, _ = clean_with_plan(fit_on, plan)
+        missing = [c for c in plan.columns if c in typed.columns and c not in reference.columns]
+        if missing:
+            raise DataError(f"--fit-on '{fit_on.path}' lacks columns {', '.join(missing)}")
+    planned = [c for c in typed.columns if c in plan.columns]
+    filled = fill_frame(typed[planned], plan, fit_on=None if reference is None
+                        else reference[planned], report=report)
+    for name in typed.columns:  # unplanned columns pass through in place (with --force)
+        if name not in plan.columns:
+            filled[name] = typed[name]
+    filled = filled[[c for c in typed.columns if c in filled.columns]]
+    if table.is_text and text_output:
+        return render_text(table, typed, filled, _specs(plan)), report
+    return filled, report

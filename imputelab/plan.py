@@ -1,0 +1,212 @@
+"""Plans: the per-column decision, its evidence, and the rule that chose it.
+
+A plan is plain data written as versioned JSON that a person can read and edit::
+
+    {"format": "imputelab-plan", "version": 1,
+     "source": {"file", "rows", "columns", "fingerprint", ...},
+     "settings": {...},
+     "columns": {NAME: {"kind", "missing_fraction", "action", "method", "params",
+                        "reason", "scores": {METHOD: {METRIC: VALUE}}, "cleaning": {...}}}}
+
+``action`` is ``impute``, ``drop`` (removed from the output) or ``exclude`` (passed through
+unchanged: identifiers, free text, the target). A user may change ``method``, ``params`` or
+``action`` and run ``fill`` again.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Any
+
+from imputelab.errors import PlanError
+from imputelab.io import atomic_path
+from imputelab.kinds import KINDS
+
+__all__ = ["ACTIONS", "PLAN_FORMAT", "PLAN_VERSION", "ColumnPlan", "Plan", "choose_method"]
+
+PLAN_FORMAT = "imputelab-plan"
+PLAN_VERSION = 1
+ACTIONS = ("impute", "drop", "exclude")
+
+
+def _round(value: Any) -> Any:
+    """Six significant digits: readable, and stable across platforms' last-bit noise."""
+    if isinstance(value, float):
+        if math.isnan(value) or math.isinf(value):
+            return None
+        return float(f"{value:.6g}")
+    if isinstance(value, dict):
+        return {k: _round(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_round(v) for v in value]
+    return value
+
+
+@dataclass
+class ColumnPlan:
+    """The decision for one column.
+
+    Attributes
+    ----------
+    kind : str
+    missing_fraction : float
+    action : {"impute", "drop", "exclude"}
+    method : str or None
+        Registry name of the fill method (for ``impute``).
+    params : dict
+        Parameters of the method.
+    reason : str
+        Why, in words.
+    scores : dict
+        ``{METHOD: {METRIC: VALUE}}``: mean over every mask and repeat, the primary metric's
+        standard error (``METRIC_se``) and its mean under each mask (``METRIC@MASK``).
+    skipped : dict
+        Methods that could not fill the column, with the reason.
+    cleaning : dict
+        How cells were read: see :class:`imputelab.kinds.ColumnSpec`.
+    """
+
+    kind: str
+    missing_fraction: float
+    action: str
+    method: str | None = None
+    params: dict[str, Any] = field(default_factory=dict)
+    reason: str = ""
+    scores: dict[str, dict[str, float]] = field(default_factory=dict)
+    skipped: dict[str, str] = field(default_factory=dict)
+    cleaning: dict[str, Any] = field(default_factory=dict)
+
+
+@dataclass
+class Plan:
+    """A per-column imputation plan; see the module docstring for the JSON layout."""
+
+    source: dict[str, Any]
+    settings: dict[str, Any]
+    columns: dict[str, ColumnPlan]
+    format: str = PLAN_FORMAT
+    version: int = PLAN_VERSION
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready dict, floats rounded to six significant digits."""
+        return _round({
+            "format": self.format,
+            "version": self.version,
+            "source": self.source,
+            "settings": self.settings,
+            "columns": {name: asdict(col) for name, col in self.columns.items()},
+        })
+
+    def to_json(self) -> str:
+        """The plan as JSON text (stable: same plan, same bytes)."""
+        return json.dumps(self.to_dict(), indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+
+    def save(self, path: str | Path) -> Path:
+        """Write the plan atomically."""
+        path = Path(path)
+        with atomic_path(path) as tmp:
+            tmp.write_text(self.to_json(), encoding="utf-8")
+        return path
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any], *, origin: str = "plan") -> Plan:
+        """Validate and build a plan from its JSON form."""
+        if not isinstance(data, Mapping) or data.get("format") != PLAN_FORMAT:
+            raise PlanError(f"{origin} is not an imputelab plan (no \"format\": \"{PLAN_FORMAT}\")")
+        if data.get("version") != PLAN_VERSION:
+            raise PlanError(
+                f"{origin} is plan version {data.get('version')!r}; this imputelab reads "
+                f"version {PLAN_VERSION}: run score again to make a new plan"
+            )
+        columns = {}
+        for name, raw in (data.get("columns") or {}).items():
+            try:
+                col = ColumnPlan(**raw)
+            except TypeError as exc:
+                raise PlanError(f"{origin}: column '{name}' is malformed: {exc}") from None
+            if col.action not in ACTIONS:
+                raise PlanError(
+                    f"{origin}: column '{name}' has action '{col.action}'; "
+                    f"use one of: {', '.join(ACTIONS)}"
+                )
+            if col.kind not in KINDS:
+                raise PlanError(f"{origin}: column '{name}' has unknown kind '{col.kind}'")
+            if col.action == "impute" and not col.method:
+                raise PlanError(f"{origin}: column '{name}' is to be imputed but has no method")
+            columns[name] = col
+        return cls(source=dict(data.get("source") or {}), settings=dict(data.get("settings") or {}),
+                   columns=columns)
+
+    @classmethod
+    def load(cls, path: str | Path, *, option: str = "--plan") -> Plan:
+        """Read a plan file."""
+        path = Path(path)
+        origin = f"{option} '{path}'"
+        if not path.is_file():
+            raise PlanError(f"{origin}: no such file; make one with 'imputelab score'")
+        try:
+            data = json.loads(path.read_text(encoding="utf-8"))
+        except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+            raise PlanError(f"{origin} is not valid JSON: {exc}") from None
+        return cls.from_dict(data, origin=origin)
+
+
+def choose_method(
+    summary: Mapping[str, tuple[float, float]],
+    simplicity: Mapping[str, int],
+    *,
+    metric: str,
+    greater_is_better: bool,
+    order: Sequence[str] = (),
+) -> tuple[str, str]:
+    """The one-standard-error rule: the simplest method within one SE of the best.
+
+    Parameters
+    ----------
+    summary : mapping
+        ``{method: (mean, standard_error)}`` of the primary metric.
+    simplicity : mapping
+        Rank of each method (lower is simpler).
+    metric : str
+        Name of the metric (for the reason).
+    greater_is_better : bool
+    order : sequence of str
+        Tie-break order for methods of equal simplicity and equal mean.
+
+    Returns
+    -------
+    method, reason : str
+
+    Examples
+    --------
+    >>> choose_method({"mean": (0.70, 0.01), "chained-forest": (0.69, 0.02)},
+    ...               {"mean": 1, "chained-forest": 4}, metric="nrmse",
+    ...               greater_is_better=False)[0]
+    'mean'
+    """
+    usable = {m: v for m, v in summary.items() if v[0] is not None and math.isfinite(v[0])}
+    if not usable:
+        raise PlanError(f"no method produced a finite {metric}")
+    sign = -1.0 if greater_is_better else 1.0
+    rank = {m: i for i, m in enumerate(order)}
+    best = min(usable, key=lambda m: (sign * usable[m][0], rank.get(m, 99)))
+    best_mean, best_se = usable[best]
+    se = best_se if math.isfinite(best_se) else 0.0
+    bound = best_mean + se if not greater_is_better else best_mean - se
+    close = [m for m, (mean, _) in usable.items()
+             if (mean <= bound if not greater_is_better else mean >= bound)]
+    chosen = min(close, key=lambda m: (simplicity.get(m, 99), sign * usable[m][0],
+                                       rank.get(m, 99)))
+    ranking = sorted(usable, key=lambda m: sign * usable[m][0])
+    runner = next((m for m in ranking if m != best), None)
+    text = f"{best} had the best mean {metric} ({best_mean:.4g} ± {best_se:.2g} SE)"
+    if chosen != best:
+        text += (f"; {chosen} ({usable[chosen][0]:.4g}) is within one standard error and "
+                 "simpler, so it is chosen")
+    elif runner is not None:
+        text += f"; next was {runner} ({usable[runner][0]:.4g})"
+    return chosen, text

