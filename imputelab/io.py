@@ -125,7 +125,11 @@ def read_table(path: str | os.PathLike[str], *, option: str = "FILE") -> Table:
     if not path.exists():
         raise TableIOError(f"{option} '{path}': no such file; check the path")
     if not path.is_file():
-        raise TableIOError(f"{option} '{path}' is not a file")
+        what = "a folder" if path.is_dir() else "a special file"
+        raise TableIOError(
+            f"{option} '{path}' is not a file; give the path of a .csv or .parquet file, "
+            f"not {what}"
+        )
     if path.stat().st_size == 0:
         raise TableIOError(f"{option} '{path}' is empty; give a file with a header and rows")
     try:
@@ -148,9 +152,12 @@ def _read_csv(path: Path, option: str) -> tuple[pd.DataFrame, str, str]:
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
+        # The utf-8-sig codec counts offsets from the end of the BOM; the message names the
+        # offset in the file, where a hex viewer would show the byte.
+        offset = exc.start + (len(codecs.BOM_UTF8) if raw.startswith(codecs.BOM_UTF8) else 0)
         raise TableIOError(
-            f"{option} '{path}' is not valid UTF-8 (byte 0x{raw[exc.start]:02x} at offset "
-            f"{exc.start}); re-save it as UTF-8"
+            f"{option} '{path}' is not valid UTF-8 (byte 0x{raw[offset]:02x} at offset "
+            f"{offset}); re-save it as UTF-8"
         ) from None
     if not text.strip():
         raise TableIOError(f"{option} '{path}' is empty; give a file with a header and rows")
@@ -158,6 +165,12 @@ def _read_csv(path: Path, option: str) -> tuple[pd.DataFrame, str, str]:
     header = next(csv.reader(io.StringIO(text), delimiter=delimiter))
     header = [name.strip() for name in header]
     _check_header(header, path, option)
+    # In a one-column file a blank line is a row whose only cell is blank, so it is kept.
+    # With several columns a row of blanks is written with delimiters (",,"), and a bare blank
+    # line is spacing, so it is skipped.
+    one_column = len(header) == 1
+    if one_column:
+        text = _drop_trailing_blank_lines(text)
     try:
         frame = pd.read_csv(
             io.StringIO(text),
@@ -166,6 +179,7 @@ def _read_csv(path: Path, option: str) -> tuple[pd.DataFrame, str, str]:
             keep_default_na=False,
             na_filter=False,
             skipinitialspace=False,
+            skip_blank_lines=not one_column,
             engine="c",
         )
     except (pd.errors.ParserError, ValueError) as exc:
@@ -174,6 +188,22 @@ def _read_csv(path: Path, option: str) -> tuple[pd.DataFrame, str, str]:
     frame.columns = header
     frame = frame.astype("str")
     return frame, delimiter, _sniff_decimal(frame, delimiter)
+
+
+def _drop_trailing_blank_lines(text: str) -> str:
+    """Cut blank lines at the end of the text, keeping the last line's terminator.
+
+    Editors and exports often end a file with an extra empty line; it is not a row. A real
+    blank last cell of a one-column file is written quoted (``""``) by CSV writers.
+    """
+    content = text.rstrip(" \t\r\n")
+    tail = text[len(content):]
+    breaks = [i for i in (tail.find("\r"), tail.find("\n")) if i >= 0]
+    if not breaks:
+        return text
+    first = min(breaks)
+    terminator = "\r\n" if tail.startswith("\r\n", first) else tail[first]
+    return text[: len(content) + first] + terminator
 
 
 def _check_header(header: list[str], path: Path, option: str) -> None:
@@ -220,16 +250,28 @@ def _sniff_decimal(frame: pd.DataFrame, delimiter: str) -> str:
 
 def _read_parquet(path: Path, option: str) -> pd.DataFrame:
     try:
-        arrow = pq.read_table(path)
+        with pq.ParquetFile(path) as parquet:
+            # The names come from the schema before any data is read: reading resolves columns
+            # by name, which fails on duplicates with a message that does not name them.
+            _check_header(list(parquet.schema_arrow.names), path, option)
+            arrow = parquet.read()
     except (pa.ArrowException, OSError) as exc:
-        raise TableIOError(f"{option} '{path}' is not a readable Parquet file: {exc}") from None
-    names = arrow.column_names
-    _check_header(list(names), path, option)
+        raise TableIOError(
+            f"{option} '{path}' is not a readable Parquet file ({_short_reason(exc)}); check "
+            "that it is a complete Parquet file or export it again"
+        ) from None
     mapping = {t: pd.Int64Dtype() for t in (pa.int8(), pa.int16(), pa.int32(), pa.int64())}
     mapping.update({pa.uint8(): pd.Int64Dtype(), pa.uint16(): pd.Int64Dtype(),
                     pa.uint32(): pd.Int64Dtype()})
     mapping[pa.bool_()] = pd.BooleanDtype()
     return arrow.to_pandas(types_mapper=mapping.get)
+
+
+def _short_reason(exc: BaseException) -> str:
+    """First sentence of an exception's message, for quoting inside another sentence."""
+    lines = str(exc).strip().splitlines()
+    first = lines[0] if lines else type(exc).__name__
+    return first.split(". ")[0].rstrip(".") or type(exc).__name__
 
 
 @contextmanager

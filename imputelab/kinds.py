@@ -24,7 +24,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from imputelab.errors import OptionError
+from imputelab.errors import DataError, OptionError
 
 __all__ = [
     "IMPUTABLE_KINDS",
@@ -33,6 +33,8 @@ __all__ = [
     "ColumnSpec",
     "clean_column",
     "infer_spec",
+    "numeric_codes",
+    "observed_numbers",
     "parse_numbers",
     "suspected_codes",
 ]
@@ -68,6 +70,11 @@ _DATE_FORMATS = (
     "%d-%m-%Y %H:%M:%S", "%d-%m-%Y %H:%M", "%d-%m-%Y",
 )
 _SWAP = {"%d/%m/%Y": "%m/%d/%Y", "%m/%d/%Y": "%d/%m/%Y"}
+# Formats are ranked on at most this many cells spread over the whole column; the full column
+# is read only when the sample leaves a doubt (common practice, no source).
+_DATE_SAMPLE = 2000
+# Whole numbers at or beyond 2**63 do not fit the Int64 dtype; such columns stay float64.
+_INT64_LIMIT = 2.0**63
 _NUMBER = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$")
 
 
@@ -170,23 +177,53 @@ def _parse_dates(text: pd.Series, fmt: str) -> pd.Series:
 
 
 def _detect_date_format(text: pd.Series) -> tuple[str | None, list[str]]:
-    sample = text.head(500) if len(text) <= 2000 else text.sample(500, random_state=0)
-    best, best_share = None, 0.0
-    for fmt in _DATE_FORMATS:
-        share = float(_parse_dates(sample, fmt).notna().mean())
-        if share > best_share + 1e-12:
-            best, best_share = fmt, share
-        if share == 1.0:
-            break
-    if best is None or best_share < DATETIME_SHARE:
+    """Pick the format that reads the most of ``text`` (non-blank, stripped cells).
+
+    Formats are ranked on evenly spaced cells, so that a change of writing late in the file is
+    seen. When the winner does not read every cell of the column, each format that reached the
+    threshold on the sample is tried on the whole column and the one reading most wins; ties go
+    to the earlier format in :data:`_DATE_FORMATS`.
+    """
+    n = len(text)
+    if n == 0:
         return None, []
+    if n <= _DATE_SAMPLE:
+        sample = text
+    else:
+        sample = text.iloc[np.unique(np.linspace(0, n - 1, _DATE_SAMPLE).round().astype(int))]
+    whole = sample is text
+    sample_share = {fmt: float(_parse_dates(sample, fmt).notna().mean()) for fmt in _DATE_FORMATS}
+    best = max(_DATE_FORMATS, key=sample_share.get)  # first of the ties: formats are in order
+    if sample_share[best] < DATETIME_SHARE:
+        return None, []
+    full_share: dict[str, float] = {}
+
+    def share_of(fmt: str) -> float:
+        if whole:
+            return sample_share[fmt]
+        if fmt not in full_share:
+            full_share[fmt] = float(_parse_dates(text, fmt).notna().mean())
+        return full_share[fmt]
+
+    if share_of(best) < 1.0:
+        candidates = [fmt for fmt in _DATE_FORMATS if sample_share[fmt] >= DATETIME_SHARE]
+        best = max(candidates, key=share_of)
+    best_share = share_of(best)
+    if best_share < DATETIME_SHARE:
+        return None, []
+    # Day-first and month-first readings that both read every cell the chosen one reads: the
+    # file cannot tell them apart, so the other is reported rather than dropped silently.
     ambiguous = []
     for left, right in _SWAP.items():
         if best.startswith(left):
             alt = best.replace(left, right)
-            if float(_parse_dates(text, alt).notna().mean()) >= best_share:
+            if share_of(alt) >= best_share:
                 ambiguous.append(alt)
     return best, ambiguous
+
+
+def _fits_int64(values: np.ndarray) -> bool:
+    return bool(np.all(np.abs(values) < _INT64_LIMIT))
 
 
 def suspected_codes(values: np.ndarray) -> list[float]:
@@ -229,6 +266,62 @@ def suspected_codes(values: np.ndarray) -> list[float]:
         if extreme > q3 + fence or extreme < q1 - fence or negative_code:
             found.append(float(extreme))
     return sorted(found)
+
+
+def numeric_codes(codes: list[Any]) -> list[float]:
+    """The missing codes that are numbers, as floats (``"99"``, ``99`` and ``99.0`` alike).
+
+    Examples
+    --------
+    >>> numeric_codes([99, "-9", "XX", 1.5])
+    [99.0, -9.0, 1.5]
+    """
+    out = []
+    for code in codes:
+        if isinstance(code, bool):
+            continue
+        if isinstance(code, int | float | np.integer | np.floating):
+            out.append(float(code))
+        elif isinstance(code, str) and _NUMBER.match(code.strip()):
+            out.append(float(code.strip()))
+    return out
+
+
+def observed_numbers(values: pd.Series, decimal: str = ".") -> np.ndarray | None:
+    """The finite numbers of a cleaned column, or None when some present cell is not a number.
+
+    Works on what :func:`clean_column` returns for numeric columns and for binary or
+    categorical columns whose labels are numbers (a 0/1 flag read from text), so that
+    :func:`suspected_codes` can look at both.
+
+    Parameters
+    ----------
+    values : Series
+        A cleaned column: missing cells are NA.
+    decimal : str
+        Decimal mark of the file, for labels read from text.
+
+    Examples
+    --------
+    >>> observed_numbers(pd.Series(["1", None, "99"], dtype="str")).tolist()
+    [1.0, 99.0]
+    >>> observed_numbers(pd.Series(["yes", "no"], dtype="str")) is None
+    True
+    """
+    present = values.dropna()
+    if pd.api.types.is_bool_dtype(present.dtype) or pd.api.types.is_datetime64_any_dtype(
+        present.dtype
+    ):
+        return None
+    if pd.api.types.is_numeric_dtype(present.dtype):
+        numbers = present.to_numpy(float, na_value=np.nan)
+    elif _is_text(present):
+        numbers = parse_numbers(present, decimal).to_numpy(float)
+        if np.isnan(numbers).any():
+            return None
+    else:
+        return None
+    return numbers[np.isfinite(numbers)]
 
 
 def infer_spec(
@@ -282,23 +375,31 @@ def infer_spec(
             spec.kind, spec.date_format = "datetime", date_format
         if spec.kind == "numeric":
             good = numbers.notna()
-            spec.integer = bool(good.any()) and bool(
-                np.all(np.mod(numbers[good].to_numpy(), 1) == 0)
-            ) and not present[good].str.contains(r"[.,]", regex=True).any()
+            whole = numbers[good].to_numpy()
+            spec.integer = (
+                bool(good.any())
+                and bool(np.all(np.mod(whole, 1) == 0))
+                and _fits_int64(whole)
+                and not present[good].str.contains(r"[.,]", regex=True).any()
+            )
             spec.decimals = 0 if spec.integer else _decimals(present[good])
         if kind is None and spec.kind == "categorical":
-            spec.kind = _label_kind(present, n_rows=len(raw))
+            # Confirmed codes are not labels: "yes", "no" and a code make a binary column.
+            labels = present[~_code_mask(present, spec.missing_codes, False, decimal)]
+            spec.kind = _label_kind(labels, n_rows=len(raw))
     else:
         spec.kind = kind or _typed_kind(raw)
         if spec.kind == "numeric" and pd.api.types.is_numeric_dtype(raw.dtype):
             values = pd.to_numeric(raw, errors="coerce").dropna().to_numpy(float)
-            spec.integer = pd.api.types.is_integer_dtype(raw.dtype)
+            spec.integer = pd.api.types.is_integer_dtype(raw.dtype) and _fits_int64(values)
             spec.decimals = 0 if spec.integer else 6
             if kind is None and len(np.unique(values)) == 2:
                 spec.kind = "binary"
     if kind is not None:
         spec.kind = kind
-    if spec.kind == "numeric" and kind is None:
+    # Two values left once blanks and confirmed codes are out (0, 1 and a code 99): binary.
+    if kind is None and (spec.kind == "numeric" or (spec.kind == "categorical"
+                                                    and spec.missing_codes)):
         cleaned, _ = clean_column(raw, spec, decimal=decimal)
         if cleaned.nunique(dropna=True) == 2:
             spec.kind = "binary"
@@ -336,13 +437,34 @@ def _typed_kind(raw: pd.Series) -> str:
     return "categorical"
 
 
-def _code_mask(values: pd.Series, codes: list[Any], numeric: bool) -> np.ndarray:
+def _code_mask(
+    values: pd.Series, codes: list[Any], numeric: bool, decimal: str = "."
+) -> np.ndarray:
+    """Cells equal to a confirmed missing code.
+
+    ``numeric`` values are floats and match the numeric codes. Labels match a code written the
+    same way, or, when both the cell and the code are numbers, of the same value: a code found
+    as 99.0 by :func:`suspected_codes` matches the text "99".
+    """
     if not codes:
         return np.zeros(len(values), bool)
+    wanted = np.array(numeric_codes(codes), dtype=float)
     if numeric:
-        wanted = np.array([float(c) for c in codes])
-        return np.isin(values.to_numpy(float), wanted)
-    return values.astype("str").str.strip().isin([str(c) for c in codes]).to_numpy(bool)
+        return np.isin(values.to_numpy(float, na_value=np.nan), wanted)
+    if _is_text(values):
+        cells = values.str.strip()
+    else:
+        cells = values.astype("str").str.strip()
+    mask = cells.isin([str(c).strip() for c in codes]).to_numpy(bool)
+    if len(wanted):
+        if pd.api.types.is_numeric_dtype(values.dtype) and not pd.api.types.is_bool_dtype(
+            values.dtype
+        ):
+            numbers = pd.to_numeric(values, errors="coerce").to_numpy(float, na_value=np.nan)
+        else:
+            numbers = parse_numbers(cells.fillna(""), decimal).to_numpy(float)
+        mask |= np.isin(numbers, wanted)
+    return mask
 
 
 def clean_column(
@@ -377,7 +499,16 @@ def clean_column(
         codes = _code_mask(values, spec.missing_codes, numeric=True)
         missing = values.isna().to_numpy(bool) | codes
         values = values.mask(pd.Series(missing, index=raw.index))
-        values = values.round().astype("Int64") if spec.integer else values.astype(float)
+        if spec.integer:
+            if not _fits_int64(values.dropna().to_numpy(float)):
+                # A spec inferred on one file, applied to another with larger numbers.
+                raise DataError(
+                    f"column '{raw.name}' holds whole numbers beyond the 64-bit integer range "
+                    "but its plan reads it as integers; survey this file again"
+                )
+            values = values.round().astype("Int64")
+        else:
+            values = values.astype(float)
         return values, _tokens(raw, missing & ~codes) if text else {}
     if spec.kind == "datetime":
         if text:
@@ -387,7 +518,7 @@ def clean_column(
         missing = values.isna().to_numpy(bool)
         return values, _tokens(raw, missing) if text else {}
     # binary and categorical: labels
-    codes = _code_mask(raw, spec.missing_codes, numeric=False)
+    codes = _code_mask(raw, spec.missing_codes, numeric=False, decimal=decimal)
     missing = blank | codes
     if text:
         values = raw.str.strip().where(~pd.Series(missing, index=raw.index))

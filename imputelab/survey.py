@@ -171,7 +171,7 @@ def survey_table(table: Table, options: SurveyOptions | None = None) -> Survey:
         notes = []
         if spec.kind in ("text", "identifier"):
             missing = int(_blank_count(raw))
-            notes.append(f"{spec.kind}: passed through unchanged, not used as a feature")
+            notes.append("passed through")
         else:
             missing = int(values.isna().sum())
         codes: list[float] = []

@@ -1,0 +1,5 @@
+"""``python -m imputelab``."""
+
+from imputelab.cli import main
+
+main()

@@ -1,0 +1,155 @@
+"""``imputelab score FILE --out plan.json``."""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.table import Table as RichTable
+
+from imputelab.cli._common import (
+    check_output,
+    handle_errors,
+    out,
+    parse_list,
+    print_json,
+    progress_bar,
+)
+from imputelab.cli._options import (
+    CodeOpt,
+    DateOpt,
+    DropOpt,
+    FileArg,
+    JsonOpt,
+    KindOpt,
+    QuietOpt,
+    TargetOpt,
+    survey_options,
+)
+from imputelab.errors import OptionError
+from imputelab.io import read_table
+from imputelab.metrics import PRIMARY, get_metric
+from imputelab.plan import Plan
+from imputelab.scoring import ScoreOptions, score_table
+from imputelab.survey import DEFAULT_DROP_THRESHOLD
+
+SHORT = {"constant": "const", "chained-linear": "linear", "chained-forest": "forest",
+         "chained-boosted": "boosted"}
+
+
+def _metric_of(plan: Plan, kind: str) -> str:
+    family = "numeric" if kind in ("numeric", "datetime") else "categorical"
+    return plan.settings.get("metrics", PRIMARY).get(family, PRIMARY[family])
+
+
+def plan_rich_table(plan: Plan) -> RichTable:
+    """The plan's decisions and reasons, as a terminal table."""
+    table = RichTable(title="Plan", title_justify="left")
+    table.add_column("column", overflow="fold")
+    table.add_column("action")
+    table.add_column("method")
+    table.add_column("why", overflow="fold", ratio=1)
+    for name, col in plan.columns.items():
+        table.add_row(name, col.action, col.method or "", col.reason)
+    return table
+
+
+def scores_rich_table(plan: Plan) -> RichTable:
+    """Each method's mean primary metric per scored column (* = chosen)."""
+    methods = list(plan.settings.get("methods", []))
+    table = RichTable(title="Scores: mean primary metric over masks and repeats (lower is "
+                            "better; * = chosen)", title_justify="left")
+    table.add_column("column", overflow="fold")
+    table.add_column("metric")
+    for method in methods:
+        table.add_column(SHORT.get(method, method), justify="right")
+    for name, col in plan.columns.items():
+        if not col.scores:
+            continue
+        metric = _metric_of(plan, col.kind)
+        cells = []
+        for method in methods:
+            value = col.scores.get(method, {}).get(metric)
+            cells.append("" if value is None else
+                         f"{value:.3f}{'*' if method == col.method else ''}")
+        table.add_row(name, metric, *cells)
+    return table
+
+
+def parse_metrics(values: list[str] | None) -> dict[str, str]:
+    """``--metric NAME`` (repeatable) to a primary metric per kind."""
+    chosen = dict(PRIMARY)
+    for value in values or ():
+        metric = get_metric(value)
+        chosen[metric.kind] = metric.name
+    return chosen
+
+
+@handle_errors
+def score(
+    file: FileArg,
+    out_path: Annotated[Path, typer.Option("--out", "-o", help="Where to write plan.json.")],
+    masks: Annotated[str, typer.Option(help="Comma-separated masks: mcar, mar, mnar.")]
+    = "mcar,mar,mnar",
+    rate: Annotated[float, typer.Option(help="Share of each column's observed cells hidden.")]
+    = 0.2,
+    repeats: Annotated[int, typer.Option(help="Fresh masks per kind of mask.")] = 3,
+    seed: Annotated[int, typer.Option(help="Seed of every random draw.")] = 0,
+    methods: Annotated[str | None, typer.Option(
+        help="Comma-separated candidate methods (default: all).")] = None,
+    metric: Annotated[list[str] | None, typer.Option(
+        "--metric", help="Primary metric of its kind (repeatable), e.g. mae or macro_f1.")]
+    = None,
+    sample: Annotated[int, typer.Option(
+        help="Run the experiment on at most this many rows (0: all rows).")] = 20_000,
+    jobs: Annotated[int, typer.Option("--jobs", "-j", help="Parallel tasks (0: all cores).")]
+    = 0,
+    use_target: Annotated[bool, typer.Option(
+        "--use-target", help="Let the target help fill the other columns.")] = False,
+    kind: KindOpt = None,
+    missing_code: CodeOpt = None,
+    date_format: DateOpt = None,
+    drop_threshold: DropOpt = DEFAULT_DROP_THRESHOLD,
+    target: TargetOpt = None,
+    json: JsonOpt = False,
+    quiet: QuietOpt = False,
+) -> None:
+    """Hide known cells, fill them with every method, score them, and write a plan."""
+    check_output(out_path, [file])
+    if use_target and target is None:
+        raise OptionError("--use-target needs --target COLUMN")
+    if jobs < 0:
+        raise OptionError(f"--jobs must be 0 (all cores) or more, got {jobs}")
+    options = ScoreOptions(
+        survey=survey_options(kind, missing_code, date_format, drop_threshold, target),
+        masks=parse_list(masks, "--masks"),
+        rate=rate,
+        repeats=repeats,
+        seed=seed,
+        methods=parse_list(methods, "--methods"),
+        metrics=parse_metrics(metric),
+        sample=sample or None,
+        use_target=use_target,
+        n_jobs=jobs or (os.cpu_count() or 1),
+    )
+    table = read_table(file)
+    with progress_bar("scoring methods", quiet=quiet) as update:
+        plan, survey, result = score_table(table, options, progress=update)
+    plan.save(out_path)
+    if json:
+        print_json(plan.to_dict())
+        return
+    if quiet:
+        return
+    out.print(scores_rich_table(plan))
+    out.print(plan_rich_table(plan))
+    if result is not None:
+        for failure in result.failures:
+            out.print(f"[yellow]note[/]: {failure['method']} failed on {failure['mask']} "
+                      f"draw {failure['repeat']}: {failure['error']}")
+    if target is not None:
+        out.print(f"Rows with the target '{target}' missing: "
+                  f"{plan.source.get('target_missing_rows', 0)}")
+    out.print(f"Plan written to {out_path}")
