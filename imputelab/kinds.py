@@ -212,12 +212,13 @@ def _detect_date_format(text: pd.Series) -> tuple[str | None, list[str]]:
     if best_share < DATETIME_SHARE:
         return None, []
     # Day-first and month-first readings that both read every cell the chosen one reads: the
-    # file cannot tell them apart, so the other is reported rather than dropped silently.
+    # file cannot tell them apart, so the other is reported rather than dropped silently. A
+    # sample cell that only the chosen one reads already settles it.
     ambiguous = []
     for left, right in _SWAP.items():
         if best.startswith(left):
             alt = best.replace(left, right)
-            if share_of(alt) >= best_share:
+            if sample_share[alt] >= sample_share[best] and share_of(alt) >= best_share:
                 ambiguous.append(alt)
     return best, ambiguous
 
@@ -451,10 +452,7 @@ def _code_mask(
     wanted = np.array(numeric_codes(codes), dtype=float)
     if numeric:
         return np.isin(values.to_numpy(float, na_value=np.nan), wanted)
-    if _is_text(values):
-        cells = values.str.strip()
-    else:
-        cells = values.astype("str").str.strip()
+    cells = values.astype("str").str.strip()
     mask = cells.isin([str(c).strip() for c in codes]).to_numpy(bool)
     if len(wanted):
         if pd.api.types.is_numeric_dtype(values.dtype) and not pd.api.types.is_bool_dtype(
@@ -463,7 +461,7 @@ def _code_mask(
             numbers = pd.to_numeric(values, errors="coerce").to_numpy(float, na_value=np.nan)
         else:
             numbers = parse_numbers(cells.fillna(""), decimal).to_numpy(float)
-        mask |= np.isin(numbers, wanted)
+        mask = mask | np.isin(numbers, wanted)
     return mask
 
 

@@ -11,7 +11,15 @@ import pandas as pd
 
 from imputelab.errors import DataError, OptionError
 from imputelab.io import Table
-from imputelab.kinds import IMPUTABLE_KINDS, ColumnSpec, clean_column, infer_spec, suspected_codes
+from imputelab.kinds import (
+    IMPUTABLE_KINDS,
+    ColumnSpec,
+    clean_column,
+    infer_spec,
+    numeric_codes,
+    observed_numbers,
+    suspected_codes,
+)
 
 __all__ = ["ColumnSurvey", "Survey", "SurveyOptions", "check_columns", "survey_table"]
 
@@ -175,10 +183,11 @@ def survey_table(table: Table, options: SurveyOptions | None = None) -> Survey:
         else:
             missing = int(values.isna().sum())
         codes: list[float] = []
-        if spec.kind == "numeric":
-            observed = pd.to_numeric(values, errors="coerce").to_numpy(float, na_value=np.nan)
-            codes = [c for c in suspected_codes(observed[np.isfinite(observed)])
-                     if c not in {float(v) for v in spec.missing_codes}]
+        observed = (observed_numbers(values, decimal=table.decimal)
+                    if spec.kind in ("numeric", "binary") else None)
+        if observed is not None:
+            confirmed = set(numeric_codes(spec.missing_codes))
+            codes = [c for c in suspected_codes(observed) if c not in confirmed]
             for code in codes:
                 count = int(np.sum(observed == code))
                 notes.append(

