@@ -1,0 +1,47 @@
+"""imputelab: survey a table's holes, test imputation methods against hidden truth, write a
+per-column plan, and fill files the same way.
+
+Filled values are estimates, not measurements.
+
+Examples
+--------
+>>> import imputelab
+>>> sorted(imputelab.get_method_names())[:3]
+['chained-boosted', 'chained-forest', 'chained-linear']
+"""
+
+from imputelab.errors import DataError, ImputelabError, OptionError, PlanError, TableIOError
+from imputelab.fill import FillReport, clean_with_plan, fill_frame, fill_table
+from imputelab.io import Table, read_table, write_table
+from imputelab.masks import get_mask, get_mask_names
+from imputelab.methods import FillMethod, get_method, get_method_names
+from imputelab.plan import ColumnPlan, Plan
+from imputelab.scoring import ScoreOptions, score_table
+from imputelab.survey import Survey, SurveyOptions, survey_table
+
+__all__ = [
+    "ColumnPlan",
+    "DataError",
+    "FillMethod",
+    "FillReport",
+    "ImputelabError",
+    "OptionError",
+    "Plan",
+    "PlanError",
+    "ScoreOptions",
+    "Survey",
+    "SurveyOptions",
+    "Table",
+    "TableIOError",
+    "clean_with_plan",
+    "fill_frame",
+    "fill_table",
+    "get_mask",
+    "get_mask_names",
+    "get_method",
+    "get_method_names",
+    "read_table",
+    "score_table",
+    "survey_table",
+    "write_table",
+]

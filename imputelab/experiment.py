@@ -159,7 +159,9 @@ def run_experiment(
         cls = get_method(method).__class__
         targets[method] = []
         for name in columns:
-            reason = cls.unsupported_reason(kinds[name], dtypes.get(name))
+            n_labels = (len(working[name].cat.categories) if is_categorical(working[name])
+                        else None)
+            reason = cls.unsupported_reason(kinds[name], dtypes.get(name), n_labels)
             if reason:
                 skipped.setdefault(name, {})[method] = reason
             else:

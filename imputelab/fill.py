@@ -184,14 +184,14 @@ def fill_frame(
             raise PlanError(f"plan: column '{columns[0]}': {exc}") from None
         if "random_state" in method.get_params():
             method.set_params(random_state=derive_seed(seed, "fill", method_name))
-        joint = [n for n in targets
-                 if method.unsupported_reason(encoding.kinds[n], typed[n].dtype) is None]
+        reasons = {n: method.unsupported_reason(encoding.kinds[n], typed[n].dtype,
+                                                len(encoding.categories.get(n, [])) or None)
+                   for n in targets}
+        joint = [n for n in targets if reasons[n] is None]
         bad = [n for n in columns if n not in joint]
         if bad:
-            raise PlanError(
-                f"plan: column '{bad[0]}': {method.unsupported_reason(encoding.kinds[bad[0]], typed[bad[0]].dtype)}; "  # noqa: E501
-                "choose another method in the plan"
-            )
+            raise PlanError(f"plan: column '{bad[0]}': {reasons[bad[0]]}; "
+                            "choose another method in the plan")
         if fit_on is None:
             out = method.fit_transform(with_derived(fit_working, encoding.kinds), joint)
         else:

@@ -58,6 +58,10 @@ NUMERIC_SHARE = 0.9
 DATETIME_SHARE = 0.95
 TEXT_MIN_UNIQUE = 20
 TEXT_UNIQUE_SHARE = 0.5
+# Free text: several words a cell on average and many distinct values (common practice, no
+# source: labels are short; sentences are not).
+TEXT_MIN_WORDS = 3.0
+TEXT_MIN_UNIQUE_SENTENCES = 50
 
 # Formats tried for datetime columns, most specific first. Day-first and month-first orders are
 # both tried; when both read every value the column is reported as ambiguous.
@@ -417,6 +421,10 @@ def _label_kind(present: pd.Series, n_rows: int) -> str:
     share = n_unique / max(len(present), 1)
     if n_unique > TEXT_MIN_UNIQUE and share > TEXT_UNIQUE_SHARE:
         return "text"
+    if n_unique > TEXT_MIN_UNIQUE_SENTENCES:
+        words = present.head(5000).str.split().str.len().mean()
+        if words >= TEXT_MIN_WORDS:
+            return "text"
     return "categorical"
 
 

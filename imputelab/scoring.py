@@ -65,7 +65,7 @@ class ScoreOptions:
     seed: int = 0
     methods: Sequence[str] | None = None
     metrics: dict[str, str] = field(default_factory=lambda: dict(PRIMARY))
-    sample: int | None = 20_000
+    sample: int | None = 10_000
     use_target: bool = False
     n_jobs: int = 1
 

@@ -103,7 +103,7 @@ def score(
         "--metric", help="Primary metric of its kind (repeatable), e.g. mae or macro_f1.")]
     = None,
     sample: Annotated[int, typer.Option(
-        help="Run the experiment on at most this many rows (0: all rows).")] = 20_000,
+        help="Run the experiment on at most this many rows (0: all rows).")] = 10_000,
     jobs: Annotated[int, typer.Option("--jobs", "-j", help="Parallel tasks (0: all cores).")]
     = 0,
     use_target: Annotated[bool, typer.Option(

@@ -15,7 +15,21 @@ import pandas as pd
 
 from imputelab.encoding import is_categorical
 
-__all__ = ["Design", "column_stats"]
+__all__ = ["MAX_ONEHOT", "Design", "column_stats", "frequent_levels"]
+
+MAX_ONEHOT = 30  # labels beyond the most frequent 30 share one all-zero "other" row
+
+
+def frequent_levels(X: pd.DataFrame, limit: int = MAX_ONEHOT) -> dict[str, np.ndarray]:
+    """Codes of the ``limit`` most frequent labels of each label column with more labels."""
+    keep = {}
+    for name in X.columns:
+        column = X[name]
+        if is_categorical(column) and len(column.cat.categories) > limit:
+            codes = column.cat.codes.to_numpy()
+            counts = np.bincount(codes[codes >= 0], minlength=len(column.cat.categories))
+            keep[name] = np.sort(np.argsort(-counts, kind="stable")[:limit])
+    return keep
 
 
 def column_stats(X: pd.DataFrame) -> dict[str, tuple[float, float]]:
@@ -44,11 +58,16 @@ class Design:
     stats : dict
         Means and standard deviations for numeric columns (standardisation), or ``None`` to
         keep raw values.
+    keep : dict, optional
+        For label columns with many labels, the codes that get a one-hot column (see
+        :func:`frequent_levels`).
     """
 
-    def __init__(self, X: pd.DataFrame, mode: str, stats: dict[str, tuple[float, float]] | None):
+    def __init__(self, X: pd.DataFrame, mode: str, stats: dict[str, tuple[float, float]] | None,
+                 keep: dict[str, np.ndarray] | None = None):
         self.mode = mode
         self.stats = stats
+        self.keep = keep or {}
         self.names = list(X.columns)
         self.blocks = {name: self.block(X[name]) for name in self.names}
 
@@ -58,9 +77,18 @@ class Design:
             codes = column.cat.codes.to_numpy()
             if self.mode == "codes":
                 return np.where(codes >= 0, codes, np.nan).astype(float)[:, None]
-            block = np.zeros((len(codes), len(column.cat.categories)))
             ok = codes >= 0
-            block[np.flatnonzero(ok), codes[ok]] = 1.0
+            if column.name in self.keep:  # many labels: one-hot the frequent ones only
+                position = np.full(len(column.cat.categories), -1)
+                kept = self.keep[column.name]
+                position[kept] = np.arange(len(kept))
+                block = np.zeros((len(codes), len(kept)))
+                where = np.where(ok, position[np.maximum(codes, 0)], -1)
+                hit = where >= 0
+                block[np.flatnonzero(hit), where[hit]] = 1.0
+            else:
+                block = np.zeros((len(codes), len(column.cat.categories)))
+                block[np.flatnonzero(ok), codes[ok]] = 1.0
             block[~ok] = np.nan
             return block
         values = column.to_numpy(float, na_value=np.nan).copy()

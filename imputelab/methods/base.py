@@ -33,6 +33,8 @@ class FillMethod(BaseEstimator, abc.ABC):
         Column kinds the method can fill.
     simplicity : int
         Rank in the simplicity order (lower is simpler); ties are broken by score.
+    max_labels : int or None
+        Most labels a label column may have for this method to model it.
     source : str
         Where the method is published.
     """
@@ -42,11 +44,27 @@ class FillMethod(BaseEstimator, abc.ABC):
     simplicity: ClassVar[int]
     source: ClassVar[str] = ""
 
+    max_labels: ClassVar[int | None] = None
+
     @classmethod
-    def unsupported_reason(cls, kind: str, dtype: Any = None) -> str | None:
-        """Why this method cannot fill a column of ``kind`` (``None`` when it can)."""
+    def unsupported_reason(cls, kind: str, dtype: Any = None,
+                           n_labels: int | None = None) -> str | None:
+        """Why this method cannot fill a column (``None`` when it can).
+
+        Parameters
+        ----------
+        kind : str
+            The column's kind.
+        dtype : dtype, optional
+            The column's type in the table.
+        n_labels : int, optional
+            Number of labels of a label column.
+        """
         if kind not in cls.kinds:
             return f"{cls.name} does not fill {kind} columns"
+        if cls.max_labels is not None and n_labels is not None and n_labels > cls.max_labels:
+            return (f"{cls.name} models at most {cls.max_labels} labels; this column has "
+                    f"{n_labels}")
         return None
 
     def fit(self, X: pd.DataFrame, targets: Sequence[str] | None = None) -> FillMethod:
@@ -94,8 +112,10 @@ class FillMethod(BaseEstimator, abc.ABC):
         if unknown:
             raise DataError(f"{self.name}: columns not in the table: {', '.join(unknown)}")
         for name in targets:
+            labels = isinstance(X[name].dtype, pd.CategoricalDtype)
             reason = self.unsupported_reason(
-                "categorical" if isinstance(X[name].dtype, pd.CategoricalDtype) else "numeric"
+                "categorical" if labels else "numeric",
+                n_labels=len(X[name].cat.categories) if labels else None,
             )
             if reason:
                 raise DataError(f"column '{name}': {reason}")

@@ -29,7 +29,7 @@ from sklearn.linear_model import BayesianRidge, LogisticRegression
 from sklearn.utils import check_random_state
 
 from imputelab.encoding import derived_from, is_categorical
-from imputelab.methods._design import Design, column_stats
+from imputelab.methods._design import Design, column_stats, frequent_levels
 from imputelab.methods.base import FillMethod
 from imputelab.methods.simple import most_frequent
 
@@ -66,6 +66,7 @@ class _ChainedFill(FillMethod):
     """Shared chain; subclasses choose the design and the per-column model."""
 
     design_mode: str = "onehot"
+    max_labels = 50
     standardise: bool = True
     raw_first_sweep: bool = False
 
@@ -101,7 +102,8 @@ class _ChainedFill(FillMethod):
         missing = {name: X[name].isna().to_numpy() for name in self.targets_}
         state = self._start(X)
         use_design = self.design_mode != "frame"
-        design = Design(state, self.design_mode, self.stats_) if use_design else None
+        design = (Design(state, self.design_mode, self.stats_, self.keep_) if use_design
+                  else None)
         if fitting:
             seeds = check_random_state(self.random_state).randint(
                 0, 2**31 - 1, size=(self.n_sweeps, len(self.order_)))
@@ -170,6 +172,7 @@ class _ChainedFill(FillMethod):
         self.order_ = sorted(targets, key=lambda n: (counts[n], targets.index(n)))
         self.excluded_ = {n: [n, *derived_from(n, list(X.columns))] for n in targets}
         self.stats_ = column_stats(X) if self.standardise else None
+        self.keep_ = frequent_levels(X) if self.design_mode == "onehot" else {}
         self.start_ = {}
         for name in X.columns:
             column = X[name]
@@ -236,11 +239,13 @@ class ChainedForestFill(_ChainedFill):
     ----------
     n_sweeps : int, default=3
         Passes over the columns (3-4 reach the accuracy of 10, at a third of the cost).
-    n_trees : int, default=60
-    num_leaves : int, default=127
-    min_child_samples : int, default=3
+    n_trees : int, default=40
+    num_leaves : int, default=63
+    min_child_samples : int, default=5
     feature_share : float, default=0.6
         Share of the features each split may choose from.
+    max_rows : int, default=5000
+        Each tree sees a random 63% of the rows, or this many when that is fewer.
     random_state : int, optional
     """
 
@@ -251,18 +256,21 @@ class ChainedForestFill(_ChainedFill):
     design_mode = "frame"
     standardise = False
 
-    def __init__(self, n_sweeps: int = 3, n_trees: int = 60, num_leaves: int = 127,
-                 min_child_samples: int = 3, feature_share: float = 0.6, random_state=None):
+    def __init__(self, n_sweeps: int = 3, n_trees: int = 40, num_leaves: int = 63,
+                 min_child_samples: int = 5, feature_share: float = 0.6, max_rows: int = 5000,
+                 random_state=None):
         super().__init__(n_sweeps=n_sweeps, random_state=random_state)
         self.n_trees = n_trees
         self.num_leaves = num_leaves
         self.min_child_samples = min_child_samples
         self.feature_share = feature_share
+        self.max_rows = max_rows
 
     def _model(self, categorical: bool, seed: int, n_rows: int) -> Any:
         params = dict(
             boosting_type="rf", n_estimators=self.n_trees, num_leaves=self.num_leaves,
-            min_child_samples=self.min_child_samples, subsample=0.632, subsample_freq=1,
+            min_child_samples=self.min_child_samples,
+            subsample=min(0.632, self.max_rows / max(n_rows, 1)), subsample_freq=1,
             feature_fraction_bynode=self.feature_share, reg_lambda=0.0,
             deterministic=True, force_row_wise=True, n_jobs=1, verbose=-1, random_state=seed,
         )

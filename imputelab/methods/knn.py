@@ -8,7 +8,7 @@ from sklearn.impute import KNNImputer
 from sklearn.utils import check_random_state
 
 from imputelab.encoding import is_categorical
-from imputelab.methods._design import Design, column_stats
+from imputelab.methods._design import Design, column_stats, frequent_levels
 from imputelab.methods.base import FillMethod
 
 __all__ = ["KNNFill"]
@@ -25,7 +25,7 @@ class KNNFill(FillMethod):
     Parameters
     ----------
     n_neighbors : int, default=5
-    max_donors : int, default=3000
+    max_donors : int, default=2000
         Neighbours are searched among at most this many rows, drawn at random, which bounds
         the cost on large tables.
     random_state : int, optional
@@ -34,9 +34,10 @@ class KNNFill(FillMethod):
 
     name = "knn"
     simplicity = 2
+    max_labels = 50
     source = "Troyanskaya et al. (2001), Bioinformatics 17(6):520-525"
 
-    def __init__(self, n_neighbors: int = 5, max_donors: int = 3000, random_state=None):
+    def __init__(self, n_neighbors: int = 5, max_donors: int = 2000, random_state=None):
         self.n_neighbors = n_neighbors
         self.max_donors = max_donors
         self.random_state = random_state
@@ -44,7 +45,8 @@ class KNNFill(FillMethod):
     def _fit(self, X: pd.DataFrame, targets: list[str]) -> None:
         rng = check_random_state(self.random_state)
         self.stats_ = column_stats(X)
-        design = Design(X, "onehot", self.stats_)
+        self.keep_ = frequent_levels(X)
+        design = Design(X, "onehot", self.stats_, self.keep_)
         matrix = design.matrix()
         if len(matrix) > self.max_donors:
             rows = np.sort(rng.choice(len(matrix), self.max_donors, replace=False))
@@ -53,7 +55,7 @@ class KNNFill(FillMethod):
         self.imputer_.fit(matrix)
 
     def _transform(self, X: pd.DataFrame) -> pd.DataFrame:
-        design = Design(X, "onehot", self.stats_)
+        design = Design(X, "onehot", self.stats_, self.keep_)
         slices = design.slices()
         need = np.zeros(len(X), bool)
         for name in self.targets_:

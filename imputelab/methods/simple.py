@@ -114,8 +114,9 @@ class ConstantFill(_StatisticFill):
         self.missing_label = missing_label
 
     @classmethod
-    def unsupported_reason(cls, kind: str, dtype: Any = None) -> str | None:
-        reason = super().unsupported_reason(kind, dtype)
+    def unsupported_reason(cls, kind: str, dtype: Any = None,
+                           n_labels: int | None = None) -> str | None:
+        reason = super().unsupported_reason(kind, dtype, n_labels)
         if reason is None and kind in ("binary", "categorical") and dtype is not None and not (
             pd.api.types.is_string_dtype(dtype) and not isinstance(dtype, pd.CategoricalDtype)
         ):
