@@ -22,7 +22,7 @@ import pandas as pd
 __all__ = ["DERIVED_SEP", "Encoding", "derived_from", "is_categorical", "with_derived"]
 
 DERIVED_SEP = "__"
-_COMPONENTS = ("year", "month", "dayofweek", "hour")
+_COMPONENTS = ("year", "month", "day_of_week", "hour")
 _NS_PER_S = 1_000_000_000
 
 
@@ -193,7 +193,7 @@ def _assign(column: pd.Series, holes: np.ndarray, values: np.ndarray) -> pd.Seri
 def with_derived(working: pd.DataFrame, kinds: Mapping[str, str]) -> pd.DataFrame:
     """Add datetime component and duration columns (features only) to a working frame.
 
-    Named ``COLUMN__year``, ``COLUMN__month``, ``COLUMN__dayofweek``, ``COLUMN__hour`` and
+    Named ``COLUMN__year``, ``COLUMN__month``, ``COLUMN__day_of_week``, ``COLUMN__hour`` and
     ``LATER__minus__EARLIER`` (hours between two datetime columns, in column order).
     """
     stamps = [name for name, kind in kinds.items() if kind == "datetime" and name in working]

@@ -9,13 +9,14 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+from threadpoolctl import threadpool_limits
 
 from imputelab.encoding import with_derived
 from imputelab.errors import DataError, PlanError
 from imputelab.experiment import derive_seed
 from imputelab.io import Table
 from imputelab.kinds import ColumnSpec, clean_column
-from imputelab.methods import get_method
+from imputelab.methods import METHODS, get_method, get_method_names
 from imputelab.plan import Plan
 from imputelab.prepare import working_setup
 
@@ -178,8 +179,19 @@ def fill_frame(
     seed = int(plan.settings.get("seed", 0))
     filled = work.copy()
     for method_name, params, columns in _groups(plan, targets).values():
+        if method_name not in METHODS:
+            raise PlanError(f"plan: column '{columns[0]}' names method '{method_name}'; "
+                            f"choose from: {', '.join(get_method_names())}")
+        # A user who edits only "method" leaves the old method's params behind: keep the ones
+        # the new method takes and say which were set aside.
+        known = METHODS[method_name]._get_param_names()
+        ignored = sorted(set(params) - set(known))
+        if ignored:
+            report.warnings.append(
+                f"column(s) {', '.join(columns)}: {method_name} has no parameter "
+                f"{', '.join(ignored)}; ignored")
         try:
-            method = get_method(method_name, **params)
+            method = get_method(method_name, **{k: v for k, v in params.items() if k in known})
         except Exception as exc:
             raise PlanError(f"plan: column '{columns[0]}': {exc}") from None
         if "random_state" in method.get_params():
@@ -192,11 +204,13 @@ def fill_frame(
         if bad:
             raise PlanError(f"plan: column '{bad[0]}': {reasons[bad[0]]}; "
                             "choose another method in the plan")
-        if fit_on is None:
-            out = method.fit_transform(with_derived(fit_working, encoding.kinds), joint)
-        else:
-            method.fit(with_derived(fit_working, encoding.kinds), joint)
-            out = method.transform(with_derived(work, encoding.kinds))
+        # One BLAS thread: these are many small fits, which threads slow down.
+        with threadpool_limits(limits=1, user_api="blas"):
+            if fit_on is None:
+                out = method.fit_transform(with_derived(fit_working, encoding.kinds), joint)
+            else:
+                method.fit(with_derived(fit_working, encoding.kinds), joint)
+                out = method.transform(with_derived(work, encoding.kinds))
         for name in columns:
             filled[name] = out[name]
             report.methods[name] = method_name

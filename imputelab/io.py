@@ -287,6 +287,9 @@ def atomic_path(target: str | os.PathLike[str]) -> Iterator[Path]:
     handle, name = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=parent)
     os.close(handle)
     tmp = Path(name)
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes owner-only files; outputs follow the umask
     try:
         yield tmp
         os.replace(tmp, target)

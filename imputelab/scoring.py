@@ -111,22 +111,26 @@ def _summary(scores: pd.DataFrame, metric: str, masks: Sequence[str]) -> dict[st
             part = group.loc[group["mask"] == mask, metric]
             if len(part):
                 entry[f"{metric}@{mask}"] = float(part.mean())
-        entry["seconds"] = None  # filled in by the caller
         out[str(method)] = entry
     return out
 
 
-def _fallback(kind: str, values: pd.Series) -> tuple[str, str]:
-    distinct = values.dropna().nunique()
-    if distinct == 0:
+def _fallback(kind: str, values: pd.Series, why: str | None = None) -> tuple[str, str]:
+    observed = int(values.notna().sum())
+    if why is not None:
+        label = why
+    elif observed == 0:
         label = "no observed value"
-    elif distinct == 1:
+    elif observed < MIN_OBSERVED:
+        label = f"only {observed} observed value{'s' if observed > 1 else ''}"
+    elif values.dropna().nunique() == 1:
         return "mode", "a single distinct observed value: filled with it (nothing to learn)"
     else:
-        label = f"only {values.notna().sum()} observed values"
+        label = "not tested"
     if kind in ("numeric", "datetime"):
         return "median", f"{label}: too few to test methods; median as a plain default"
-    return "mode", f"{label}: too few to test methods; most frequent value as a plain default"
+    return "mode", (f"{label}: too few to test methods; most frequent value as a plain "
+                    "default")
 
 
 def plan_from_experiment(
@@ -164,12 +168,19 @@ def plan_from_experiment(
             summary = _summary(rows, metric, options.masks)
             for method, entry in summary.items():
                 draws = int((rows["method"] == method).sum())
-                entry["seconds"] = round(result.seconds.get(method, 0.0), 3)
                 entry["draws"] = draws
             plan.scores = summary
             plan.skipped = dict(result.skipped.get(name, {}))
             usable = {m: (s[metric], s[f"{metric}_se"]) for m, s in summary.items()
-                      if metric in s}
+                      if metric in s and s[metric] is not None and math.isfinite(s[metric])}
+            if not usable:
+                plan.method, plan.reason = _fallback(
+                    kind, survey.typed[name],
+                    why=f"no candidate method ({', '.join(methods)}) could fill this {kind} "
+                        "column")
+                plan.params = _public_params(plan.method)
+                columns[name] = plan
+                continue
             chosen, why = choose_method(usable, simplicity, metric=metric,
                                         greater_is_better=get_metric(metric).greater_is_better,
                                         order=methods)

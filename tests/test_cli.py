@@ -131,10 +131,6 @@ def test_survey_prints_a_table_naming_every_column(trip_log_csv):
     assert result.stderr == ""
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "cli/survey.py survey_rich_table: the 'column' column has overflow='fold' and no "
-    "no_wrap/min_width, so in an 80-character terminal (rich's width for pipes) names are cut "
-    "across lines ('departe' / 'd_at') and cannot be read or copied from the table"))
 def test_survey_table_keeps_column_names_whole_in_80_columns(trip_log_csv):
     result = ok(invoke("survey", trip_log_csv, env={"COLUMNS": "80"}))
     for name in DEMO_COLUMNS:
@@ -225,9 +221,6 @@ def test_score_writes_a_plan_with_every_column(trip_log_csv, tmp_path, fast_scor
             assert col["scores"], name
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "scoring.plan_from_experiment stores wall-clock timings (scores.METHOD.seconds) in the plan, "
-    "so two score runs with the same file, options and seed write different plan.json bytes"))
 def test_score_same_seed_gives_byte_identical_plans(trip_log_csv, tmp_path, fast_score_args):
     first, second = tmp_path / "first.json", tmp_path / "second.json"
     ok(invoke("score", trip_log_csv, "--out", first, *fast_score_args, "--quiet"))
@@ -381,10 +374,6 @@ def test_fill_uses_a_method_edited_in_the_plan(trip_log_csv, trip_log_plan, tmp_
             assert float(filled) == pytest.approx(median, abs=0.05 + 1e-9)
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "fill.fill_frame passes the plan's params unchanged to the edited method: changing only "
-    "\"method\" from chained-linear to \"median\" fails with \"method 'median' has no "
-    "parameter n_sweeps\" (exit 2) although plan.py says a user may change the method"))
 def test_fill_uses_a_method_edited_alone(trip_log_csv, trip_log_plan, tmp_path):
     plan = load(trip_log_plan)
     name = next(n for n, c in plan["columns"].items() if c["action"] == "impute" and c["params"]
@@ -423,10 +412,6 @@ def test_fill_json_prints_the_report_on_stdout_only(trip_log_csv, trip_log_plan,
     assert result.stderr == ""
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "io.atomic_path creates the temporary file with tempfile.mkstemp (mode 0600) and renames it "
-    "into place, so every file fill/score/demo write is readable by its owner only instead of "
-    "honouring the umask (0644 under umask 022)"))
 def test_fill_output_permissions_follow_the_umask(trip_log_csv, trip_log_plan, tmp_path):
     out = tmp_path / "filled.csv"
     ok(invoke("fill", trip_log_csv, "--plan", trip_log_plan, "--out", out, "-q"))

@@ -109,8 +109,10 @@ def print_json(data: Any) -> None:
 @contextmanager
 def progress_bar(description: str, *, quiet: bool):
     """A transient progress bar on stderr; yields ``update(done, total)``."""
+    # Only on a terminal: a bar written to a pipe or a log is noise.
     bar = Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
-                   TimeElapsedColumn(), console=err, transient=True, disable=quiet)
+                   TimeElapsedColumn(), console=err, transient=True,
+                   disable=quiet or not err.is_terminal)
     with bar:
         task = bar.add_task(description, total=None)
 

@@ -47,7 +47,7 @@ def _metric_of(plan: Plan, kind: str) -> str:
 def plan_rich_table(plan: Plan) -> RichTable:
     """The plan's decisions and reasons, as a terminal table."""
     table = RichTable(title="Plan", title_justify="left")
-    table.add_column("column", overflow="fold")
+    table.add_column("column", no_wrap=True)
     table.add_column("action")
     table.add_column("method")
     table.add_column("why", overflow="fold", ratio=1)
@@ -61,7 +61,7 @@ def scores_rich_table(plan: Plan) -> RichTable:
     methods = list(plan.settings.get("methods", []))
     table = RichTable(title="Scores: mean primary metric over masks and repeats (lower is "
                             "better; * = chosen)", title_justify="left")
-    table.add_column("column", overflow="fold")
+    table.add_column("column", no_wrap=True)
     table.add_column("metric")
     for method in methods:
         table.add_column(SHORT.get(method, method), justify="right")
@@ -82,7 +82,10 @@ def parse_metrics(values: list[str] | None) -> dict[str, str]:
     """``--metric NAME`` (repeatable) to a primary metric per kind."""
     chosen = dict(PRIMARY)
     for value in values or ():
-        metric = get_metric(value)
+        try:
+            metric = get_metric(value)
+        except OptionError as exc:
+            raise OptionError(f"--metric: {exc}") from None
         chosen[metric.kind] = metric.name
     return chosen
 

@@ -24,7 +24,8 @@ def survey_rich_table(survey: Survey) -> RichTable:
     """The per-column survey as a terminal table."""
     table = RichTable(title=f"{survey.table.path.name}: {survey.rows} rows, "
                             f"{len(survey.columns)} columns", title_justify="left")
-    for header, justify in (("column", "left"), ("kind", "left"), ("missing", "right"),
+    table.add_column("column", no_wrap=True)
+    for header, justify in (("kind", "left"), ("missing", "right"),
                             ("missing %", "right"), ("tokens read as missing", "left"),
                             ("suspected codes", "left"), ("drop", "left"), ("notes", "left")):
         table.add_column(header, justify=justify, overflow="fold")
