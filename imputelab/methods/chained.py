@@ -239,12 +239,12 @@ class ChainedForestFill(_ChainedFill):
     ----------
     n_sweeps : int, default=3
         Passes over the columns (3-4 reach the accuracy of 10, at a third of the cost).
-    n_trees : int, default=40
+    n_trees : int, default=30
     num_leaves : int, default=63
     min_child_samples : int, default=5
     feature_share : float, default=0.6
         Share of the features each split may choose from.
-    max_rows : int, default=5000
+    max_rows : int, default=3000
         Each tree sees a random 63% of the rows, or this many when that is fewer.
     random_state : int, optional
     """
@@ -256,8 +256,8 @@ class ChainedForestFill(_ChainedFill):
     design_mode = "frame"
     standardise = False
 
-    def __init__(self, n_sweeps: int = 3, n_trees: int = 40, num_leaves: int = 63,
-                 min_child_samples: int = 5, feature_share: float = 0.6, max_rows: int = 5000,
+    def __init__(self, n_sweeps: int = 3, n_trees: int = 30, num_leaves: int = 63,
+                 min_child_samples: int = 5, feature_share: float = 0.6, max_rows: int = 3000,
                  random_state=None):
         super().__init__(n_sweeps=n_sweeps, random_state=random_state)
         self.n_trees = n_trees

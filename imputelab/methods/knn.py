@@ -25,7 +25,7 @@ class KNNFill(FillMethod):
     Parameters
     ----------
     n_neighbors : int, default=5
-    max_donors : int, default=2000
+    max_donors : int, default=1000
         Neighbours are searched among at most this many rows, drawn at random, which bounds
         the cost on large tables.
     random_state : int, optional
@@ -37,7 +37,7 @@ class KNNFill(FillMethod):
     max_labels = 50
     source = "Troyanskaya et al. (2001), Bioinformatics 17(6):520-525"
 
-    def __init__(self, n_neighbors: int = 5, max_donors: int = 2000, random_state=None):
+    def __init__(self, n_neighbors: int = 5, max_donors: int = 1000, random_state=None):
         self.n_neighbors = n_neighbors
         self.max_donors = max_donors
         self.random_state = random_state
