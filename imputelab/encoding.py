@@ -23,7 +23,7 @@ __all__ = ["DERIVED_SEP", "Encoding", "derived_from", "is_categorical", "with_de
 
 DERIVED_SEP = "__"
 _COMPONENTS = ("year", "month", "day_of_week", "hour")
-_NS_PER_S = 1_000_000_000
+_US_PER_S = 1_000_000
 
 
 def is_categorical(series: pd.Series) -> bool:
@@ -40,11 +40,14 @@ def _sort_labels(values: Sequence[Any]) -> list[Any]:
 
 def _to_seconds(values: pd.Series) -> np.ndarray:
     stamps = pd.to_datetime(values, errors="coerce")
+    if isinstance(stamps.dtype, pd.DatetimeTZDtype):  # seconds are always UTC seconds
+        stamps = stamps.dt.tz_convert("UTC").dt.tz_localize(None)
     out = np.full(len(stamps), np.nan)
     ok = stamps.notna().to_numpy()
     if ok.any():
-        ns = stamps[ok].astype("datetime64[ns]").to_numpy().astype("int64")
-        out[ok] = ns / _NS_PER_S
+        # microseconds reach the year 9999 (nanoseconds stop in 2262)
+        us = stamps[ok].astype("datetime64[us]").to_numpy().astype("int64")
+        out[ok] = us / _US_PER_S
     return out
 
 
@@ -131,8 +134,10 @@ class Encoding:
         for name, kind in self.kinds.items():
             column = typed[name]
             if kind in ("categorical", "binary"):
-                labels = column.astype(object).where(column.notna(), None)
-                data[name] = pd.Categorical(labels, categories=self.categories[name])
+                labels = column.astype(object)
+                known = labels.isin(self.categories[name]) & column.notna()
+                data[name] = pd.Categorical(labels.where(known, None),
+                                            categories=self.categories[name])
             elif kind == "datetime":
                 data[name] = _to_seconds(column)
             else:
@@ -162,7 +167,7 @@ class Encoding:
                 if kind == "datetime":
                     step = self.resolution.get(name, 1)
                     seconds = np.round(raw / step) * step
-                    values = pd.to_datetime(seconds.astype("int64"), unit="s").to_numpy()
+                    values = seconds.astype("int64").astype("datetime64[s]")
                 elif self.integer.get(name):
                     values = np.round(raw)
                 else:
@@ -178,8 +183,8 @@ def _assign(column: pd.Series, holes: np.ndarray, values: np.ndarray) -> pd.Seri
         values = pd.DatetimeIndex(values).as_unit(np.datetime_data(dtype)[0]
                                                   if not isinstance(dtype, pd.DatetimeTZDtype)
                                                   else dtype.unit)
-        if isinstance(dtype, pd.DatetimeTZDtype):
-            values = values.tz_localize(dtype.tz)
+        if isinstance(dtype, pd.DatetimeTZDtype):  # the seconds were UTC
+            values = values.tz_localize("UTC").tz_convert(dtype.tz)
     elif pd.api.types.is_integer_dtype(dtype):
         values = values.astype("int64")
     elif pd.api.types.is_bool_dtype(dtype):
@@ -203,7 +208,7 @@ def with_derived(working: pd.DataFrame, kinds: Mapping[str, str]) -> pd.DataFram
     for name in stamps:
         seconds = working[name].to_numpy(float)
         ok = np.isfinite(seconds)
-        when = pd.to_datetime(np.where(ok, seconds, 0).astype("int64"), unit="s")
+        when = pd.DatetimeIndex(np.where(ok, seconds, 0).astype("int64").astype("datetime64[s]"))
         for part in _COMPONENTS:
             values = getattr(when, part).to_numpy(float)
             extra[f"{name}{DERIVED_SEP}{part}"] = np.where(ok, values, np.nan)

@@ -9,9 +9,10 @@ order in which tasks run, so one job or many give the same numbers.
 
 from __future__ import annotations
 
+import hashlib
+import json
 import time
 import traceback
-import zlib
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
@@ -30,9 +31,13 @@ __all__ = ["ExperimentResult", "derive_seed", "run_experiment"]
 
 
 def derive_seed(*parts: int | str) -> int:
-    """A 31-bit seed from a tuple of ints and names (stable across runs and platforms)."""
-    entropy = [p if isinstance(p, int) else zlib.crc32(p.encode()) for p in parts]
-    return int(np.random.SeedSequence(entropy).generate_state(1)[0] >> 1)
+    """A 31-bit seed from a tuple of ints and names (stable across runs and platforms).
+
+    The parts are hashed as their JSON text, so ``(0, "mcar", 0)`` and ``(0, "mcar")`` differ.
+    """
+    text = json.dumps([p if isinstance(p, str) else int(p) for p in parts])
+    digest = hashlib.sha256(text.encode()).digest()
+    return int.from_bytes(digest[:4], "little") >> 1
 
 
 @dataclass

@@ -12,7 +12,7 @@ import pandas as pd
 from threadpoolctl import threadpool_limits
 
 from imputelab.encoding import with_derived
-from imputelab.errors import DataError, PlanError
+from imputelab.errors import DataError, ImputelabError, PlanError
 from imputelab.experiment import derive_seed
 from imputelab.io import Table
 from imputelab.kinds import ColumnSpec, clean_column
@@ -204,13 +204,21 @@ def fill_frame(
         if bad:
             raise PlanError(f"plan: column '{bad[0]}': {reasons[bad[0]]}; "
                             "choose another method in the plan")
-        # One BLAS thread: these are many small fits, which threads slow down.
-        with threadpool_limits(limits=1, user_api="blas"):
-            if fit_on is None:
-                out = method.fit_transform(with_derived(fit_working, encoding.kinds), joint)
-            else:
-                method.fit(with_derived(fit_working, encoding.kinds), joint)
-                out = method.transform(with_derived(work, encoding.kinds))
+        edited = {k: v for k, v in method.get_params().items()
+                  if k != "random_state" and v != METHODS[method_name]().get_params()[k]}
+        try:
+            out = _fit_fill(method, fit_working, work, encoding.kinds, joint,
+                            refit=fit_on is not None)
+        except ImputelabError:
+            raise
+        except Exception as exc:
+            if not edited:
+                raise  # default settings failing is a bug, not bad input
+            first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+            raise PlanError(
+                f"plan: column '{columns[0]}': {method_name} failed with params "
+                f"{json.dumps(edited, sort_keys=True)} ({first}); fix them in the plan"
+            ) from None
         for name in columns:
             filled[name] = out[name]
             report.methods[name] = method_name
@@ -220,6 +228,16 @@ def fill_frame(
     report.dropped = [n for n, a in actions.items() if a == "drop"]
     report.excluded = [n for n, a in actions.items() if a == "exclude"]
     return result.drop(columns=report.dropped)
+
+
+def _fit_fill(method: Any, fit_working: pd.DataFrame, work: pd.DataFrame,
+              kinds: Mapping[str, str], targets: list[str], *, refit: bool) -> pd.DataFrame:
+    # One BLAS thread: these are many small fits, which threads slow down.
+    with threadpool_limits(limits=1, user_api="blas"):
+        if not refit:
+            return method.fit_transform(with_derived(fit_working, kinds), targets)
+        method.fit(with_derived(fit_working, kinds), targets)
+        return method.transform(with_derived(work, kinds))
 
 
 def render_text(

@@ -122,8 +122,13 @@ class Plan:
                 f"{origin} is plan version {data.get('version')!r}; this imputelab reads "
                 f"version {PLAN_VERSION}: run score again to make a new plan"
             )
+        for section in ("source", "settings", "columns"):
+            if not isinstance(data.get(section, {}), Mapping):
+                raise PlanError(f"{origin}: \"{section}\" must be a JSON object")
         columns = {}
         for name, raw in (data.get("columns") or {}).items():
+            if not isinstance(raw, Mapping):
+                raise PlanError(f"{origin}: column '{name}' must be a JSON object")
             try:
                 col = ColumnPlan(**raw)
             except TypeError as exc:

@@ -73,6 +73,8 @@ class ScoreOptions:
         """Check ranges and names; raise :class:`OptionError`."""
         if not 0.0 < self.rate < 1.0:
             raise OptionError(f"--rate must be strictly between 0 and 1, got {self.rate}")
+        if self.seed < 0:
+            raise OptionError(f"--seed must be 0 or more, got {self.seed}")
         if self.repeats < 1:
             raise OptionError(f"--repeats must be at least 1, got {self.repeats}")
         if self.sample is not None and self.sample < 20:

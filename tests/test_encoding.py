@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import datetime as dt
+import warnings
 
 import numpy as np
 import pandas as pd
@@ -195,11 +196,21 @@ def test_minute_formats_get_whole_minutes():
     assert (filled.dt.microsecond == 0).all()
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="encoding._to_seconds: Encoding.fit raises TypeError on a timezone-aware datetime "
-           "column (astype('datetime64[ns]') on datetime64[ns, tz])",
-)
+def test_dates_beyond_the_nanosecond_range_round_trip():
+    values = np.array(["2026-03-01", "NaT", "9999-12-31", "2026-03-05"], dtype="datetime64[us]")
+    typed = pd.DataFrame({"valid_until": values})
+    enc = Encoding.fit(typed, {"valid_until": "datetime"},
+                       date_formats={"valid_until": "%Y-%m-%d"})
+    working = enc.encode(typed)
+    # Reference: the standard library's POSIX timestamp of 9999-12-31 read as UTC.
+    assert working["valid_until"].iloc[2] == dt.datetime(9999, 12, 31, tzinfo=dt.UTC).timestamp()
+    fill = pd.Timestamp("2030-06-15")
+    out = enc.decode(put(working, "valid_until", 1, (fill - pd.Timestamp(0)).total_seconds()),
+                     typed)
+    assert out["valid_until"].dtype == np.dtype("datetime64[us]")
+    assert out["valid_until"].iloc[1] == fill
+
+
 def test_timezone_aware_datetimes_keep_their_zone_and_instant():
     # Parquet files carry zone-aware timestamps; _assign has a branch for them.
     stamps = pd.to_datetime(pd.Series(["2026-01-05 06:30", None, "2026-01-07 22:15"]))
@@ -212,14 +223,8 @@ def test_timezone_aware_datetimes_keep_their_zone_and_instant():
     assert out["departed"].iloc[1] == fill
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="encoding._assign: a fill for a timezone-aware column is tz_localize'd, which reads "
-           "the UTC seconds as wall time in the column's zone and shifts the instant by the "
-           "zone's offset (12:00+01:00 comes back as 11:00+01:00)",
-)
 def test_timezone_aware_fill_lands_on_the_same_instant():
-    # Built by hand so that decode is tested without fit (see the test above).
+    # Built by hand so that decode is tested on its own, without fit.
     stamps = pd.to_datetime(pd.Series(["2026-01-05 06:30", None, "2026-01-07 22:15"]))
     typed = pd.DataFrame({"departed": stamps.dt.tz_localize("Europe/Berlin")})
     enc = Encoding(kinds={"departed": "datetime"})
@@ -250,6 +255,15 @@ def test_labels_unseen_at_fit_encode_as_missing():
     working = enc.encode(later)
     assert working["depot"].isna().tolist() == [False, True, True]
     assert list(working["depot"].cat.categories) == ["Hull", "Leeds", "York"]
+
+
+def test_unseen_labels_encode_without_deprecated_pandas_behaviour():
+    enc = fit(trip_table()[["depot"]])
+    later = pd.DataFrame({"depot": pd.Series(["York", "Derby", None], dtype="str")})
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        working = enc.encode(later)
+    assert working["depot"].isna().tolist() == [False, True, True]
 
 
 def test_categorical_columns_keep_their_dtype_and_categories():
@@ -336,7 +350,7 @@ def test_with_derived_adds_components_that_match_the_calendar():
     pd.testing.assert_frame_equal(out[list(working.columns)], working, check_exact=True)
     raw = ["2026-01-01 10:00", "2026-03-14 23:59", None, "2026-06-30 00:30"]
     for row, text in enumerate(raw):
-        parts = [out[f"departed__{p}"].iloc[row] for p in ("year", "month", "dayofweek", "hour")]
+        parts = [out[f"departed__{p}"].iloc[row] for p in ("year", "month", "day_of_week", "hour")]
         if text is None:
             assert np.isnan(parts).all()
             continue
@@ -374,11 +388,11 @@ def test_derived_from_lists_every_feature_made_from_a_column():
     working, kinds = two_stamps()
     columns = list(with_derived(working, kinds).columns)
     assert derived_from("departed", columns) == [
-        "departed__year", "departed__month", "departed__dayofweek", "departed__hour",
+        "departed__year", "departed__month", "departed__day_of_week", "departed__hour",
         "arrived__minus__departed",
     ]
     assert derived_from("arrived", columns) == [
-        "arrived__year", "arrived__month", "arrived__dayofweek", "arrived__hour",
+        "arrived__year", "arrived__month", "arrived__day_of_week", "arrived__hour",
         "arrived__minus__departed",
     ]
     assert derived_from("load_kg", columns) == []

@@ -2,12 +2,15 @@
 
 from __future__ import annotations
 
+import json
 import re
 import warnings
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
@@ -100,6 +103,8 @@ def trip_frames(draw) -> pd.DataFrame:
     })
     for name in ("temp_c", "stops", "depot", "reefer", "departed", "cargo"):
         frame[name] = frame[name].mask(holes())
+    # Neither 0..n-1 nor sorted, so that positional and label indexing cannot be confused.
+    frame.index = pd.Index(np.array(draw(st.permutations(range(n)))) + 1000, name="trip")
     return frame
 
 
@@ -220,14 +225,39 @@ def test_a_method_that_cannot_fill_a_kind_is_a_plan_error():
         fill_frame(fixed_frame(), plan)
 
 
-def test_an_unknown_method_or_parameter_is_a_plan_error():
+def test_an_unknown_method_is_a_plan_error():
     plan = hand_plan({**dict.fromkeys(SPECS, "mode"), "temp_c": "magic"})
-    with pytest.raises(PlanError, match="column 'temp_c': unknown method 'magic'"):
+    with pytest.raises(PlanError, match="column 'temp_c' names method 'magic'; choose from: "
+                                        "constant, mean, median, mode"):
         fill_frame(fixed_frame(), plan)
-    plan = hand_plan(dict.fromkeys(SPECS, "knn"))
-    plan.columns["temp_c"].params = {"k": 3}
-    with pytest.raises(PlanError, match="column 'temp_c': method 'knn' has no parameter k"):
-        fill_frame(fixed_frame(), plan)
+
+
+def test_parameters_the_method_does_not_take_are_ignored_with_a_warning():
+    # A user who changes only "method" in the plan leaves the old method's params behind.
+    frame = fixed_frame()
+    plan = hand_plan(dict.fromkeys(SPECS, "mode"))
+    plan.columns["temp_c"].params = {"n_neighbors": 3}
+    report = FillReport()
+    out = quiet_fill(frame, plan, report=report)
+    assert report.warnings == ["column(s) temp_c: mode has no parameter n_neighbors; ignored"]
+    assert_fill_invariants(frame, out, plan)
+
+
+@pytest.mark.parametrize(("method", "params"), [
+    ("knn", {"n_neighbors": "five"}),
+    ("knn", {"n_neighbors": 0}),
+    ("chained-linear", {"n_sweeps": -1}),
+    ("chained-forest", {"n_trees": 0}),
+    ("chained-boosted", {"learning_rate": -1.0}),
+])
+def test_a_bad_parameter_value_is_a_plan_error(method, params):
+    # The plan is meant to be edited by hand (see imputelab.plan); a bad value is the user's
+    # to fix, so it must come back as a PlanError naming the column.
+    plan = hand_plan(dict.fromkeys(SPECS, "mode"))
+    plan.columns["temp_c"].method = method
+    plan.columns["temp_c"].params = params
+    with pytest.raises(PlanError, match="column 'temp_c'"):
+        quiet_fill(fixed_frame(), plan)
 
 
 def test_a_column_with_nothing_observed_cannot_be_imputed():
@@ -243,6 +273,18 @@ def test_the_seed_of_the_plan_reaches_the_methods():
              for s in (1, 1, 2)]
     pd.testing.assert_frame_equal(fills[0], fills[1], check_exact=True)
     assert not fills[0]["temp_c"].equals(fills[2]["temp_c"])
+
+
+def test_model_fills_beyond_the_observed_range_are_clipped_to_it():
+    # temp_c = stops exactly, but temp_c is seen only for stops 0..19: a regression fill for
+    # stops 20..39 would extrapolate to 20..39; the fill stops at the largest value seen.
+    frame = fixed_frame(n=40)
+    frame["stops"] = pd.array(np.arange(40), dtype="Int64")
+    frame["temp_c"] = np.where(np.arange(40) < 20, np.arange(40, dtype=float), np.nan)
+    plan = hand_plan({**dict.fromkeys(SPECS, "mode"), "temp_c": "chained-linear"})
+    out = quiet_fill(frame, plan)
+    assert (out["temp_c"].iloc[20:] == 19.0).all()
+    assert_fill_invariants(frame, out, plan)
 
 
 # ------------------------------------------------------------------------ fit on another
@@ -267,9 +309,14 @@ def test_fit_on_learns_from_the_reference_and_fills_the_other():
 
 def test_fit_on_with_a_model_fills_every_hole_of_the_other():
     reference, later = fixed_frame(0, n=60), fixed_frame(1, n=30)
+    # a label the reference never had: kept where observed, never used as a fill
+    depot = later["depot"].copy()
+    depot.iloc[np.flatnonzero(depot.notna().to_numpy())[:2]] = "Bristol"
+    later["depot"] = depot
     plan = hand_plan(dict.fromkeys(SPECS, "chained-linear"))
     out = quiet_fill(later, plan, fit_on=reference)
     assert_fill_invariants(later, out, plan, learned_from=reference)
+    assert (out["depot"] == "Bristol").sum() == 2
 
 
 # --------------------------------------------------------------------------- CSV files
@@ -404,6 +451,68 @@ def test_fill_table_with_fit_on_fills_a_later_file(tmp_path, scored_csv):
     assert (out.to_numpy()[seen] == later.frame.to_numpy()[seen]).all()
     assert report.warnings and "has different content" in report.warnings[0]
     assert sum(report.filled.values()) == int(holes.drop(columns="trip_id").sum().sum())
+
+
+def test_parquet_with_zone_aware_timestamps_fills_on_the_right_instants(tmp_path):
+    # Parquet keeps a timestamp's zone; filled stamps must land in it, observed ones unchanged.
+    rng = np.random.default_rng(6)
+    n = 60
+    departed = (pd.Timestamp("2026-03-01 08:00", tz="Europe/Berlin")
+                + pd.to_timedelta(np.sort(rng.integers(0, 10**5, n)), unit="min"))
+    frame = pd.DataFrame({"departed": pd.Series(departed), "load_kg": rng.normal(900, 50, n)})
+    frame["departed"] = frame["departed"].mask(rng.random(n) < 0.2)
+    path = tmp_path / "trips.parquet"
+    pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), path)
+    table = read_table(path)
+    plan, _, _ = score_table(table, CHEAP)
+    plan.columns["departed"].method, plan.columns["departed"].params = "median", {}
+    out, report = fill_table(table, plan)
+    before = table.frame["departed"]
+    assert out["departed"].dtype == before.dtype
+    assert str(out["departed"].dt.tz) == "Europe/Berlin"
+    seen = before.notna().to_numpy()
+    pd.testing.assert_series_equal(out["departed"][seen], before[seen], check_exact=True)
+    assert report.filled["departed"] == int((~seen).sum())
+    filled = out["departed"][~seen]
+    assert filled.between(before.min(), before.max()).all()
+    # The median fill is one instant: the median of the observed UTC instants (numpy), to
+    # the second (a Parquet timestamp has no text format to say otherwise).
+    seconds = before[seen].map(pd.Timestamp.timestamp).to_numpy()
+    expected = pd.Timestamp(np.median(seconds), unit="s", tz="UTC").round("s")
+    assert (filled == expected).all()
+
+
+def test_fit_on_must_have_the_planned_columns(tmp_path, scored_csv):
+    reference, plan = scored_csv
+    narrow = tmp_path / "narrow.csv"
+    reference.frame.drop(columns=["stops"]).to_csv(narrow, index=False)
+    with pytest.raises(DataError, match=r"--fit-on '.*narrow\.csv' lacks columns stops"):
+        fill_table(reference, plan, fit_on=read_table(narrow))
+
+
+def test_forced_fill_passes_unplanned_columns_through_in_place(tmp_path, scored_csv):
+    table, plan = scored_csv
+    wider = table.frame.copy()
+    wider.insert(2, "driver", ["Ann", "", "Bo"] * (len(wider) // 3))
+    path = tmp_path / "wider.csv"
+    wider.to_csv(path, index=False)
+    wide = read_table(path)
+    with pytest.raises(PlanError, match="not in the plan: driver"):
+        fill_table(wide, plan)
+    out, report = fill_table(wide, plan, force=True)
+    assert list(out.columns) == list(wider.columns)
+    assert out["driver"].tolist() == wider["driver"].tolist()
+    assert any("not in the plan: driver" in w for w in report.warnings)
+    same, _ = fill_table(table, plan)
+    pd.testing.assert_frame_equal(out.drop(columns="driver"), same, check_exact=True)
+
+
+def test_the_report_is_plain_json_data(scored_csv):
+    table, plan = scored_csv
+    _, report = fill_table(table, plan)
+    data = json.loads(json.dumps(report.to_dict()))
+    assert data["filled"] == report.filled
+    assert set(data) == {"filled", "methods", "dropped", "excluded", "new_tokens", "warnings"}
 
 
 # ------------------------------------------------------------------ cleaning by the plan

@@ -320,18 +320,22 @@ def test_unknown_or_missing_column_keys_are_refused():
         Plan.from_dict(data)
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="plan.Plan.from_dict: a hand-edited plan whose 'columns', 'source' or 'settings' is "
-           "not a JSON object raises AttributeError/TypeError/ValueError instead of PlanError",
-)
-@pytest.mark.parametrize("key, value", [("columns", ["depot"]), ("source", [1, 2]),
-                                        ("settings", "seed=7")],
+@pytest.mark.parametrize(("key", "value"), [("columns", ["depot"]), ("source", [1, 2]),
+                                            ("settings", "seed=7")],
                          ids=["columns-list", "source-list", "settings-string"])
 def test_sections_that_are_not_objects_are_refused(key, value):
+    # A hand-edited plan must fail as a PlanError (a message), never as a traceback.
     data = plan_data()
     data[key] = value
-    with pytest.raises(PlanError, match=f"{key}"):
+    with pytest.raises(PlanError, match=f'"{key}" must be a JSON object'):
+        Plan.from_dict(data)
+
+
+@pytest.mark.parametrize("value", [["impute"], "impute", 3])
+def test_a_column_that_is_not_an_object_is_refused(value):
+    data = plan_data()
+    data["columns"]["depot"] = value
+    with pytest.raises(PlanError, match="column 'depot' must be a JSON object"):
         Plan.from_dict(data)
 
 
