@@ -69,6 +69,8 @@ class Encoding:
     resolution : dict
         Seconds to which each datetime column's fills are rounded (60 when its format has
         no seconds, 86400 when it has no time).
+    decimals : dict
+        Decimal places numeric fills are rounded to.
     """
 
     kinds: dict[str, str]
@@ -76,6 +78,7 @@ class Encoding:
     ranges: dict[str, tuple[float, float]] = field(default_factory=dict)
     integer: dict[str, bool] = field(default_factory=dict)
     resolution: dict[str, int] = field(default_factory=dict)
+    decimals: dict[str, int] = field(default_factory=dict)
 
     @classmethod
     def fit(
@@ -85,6 +88,7 @@ class Encoding:
         *,
         integer: Mapping[str, bool] | None = None,
         date_formats: Mapping[str, str | None] | None = None,
+        decimals: Mapping[str, int] | None = None,
     ) -> Encoding:
         """Learn categories and ranges from a typed frame.
 
@@ -98,6 +102,9 @@ class Encoding:
             Numeric columns holding whole numbers.
         date_formats : mapping, optional
             Text format of datetime columns (sets the rounding of filled timestamps).
+        decimals : mapping, optional
+            Decimal places of numeric columns: fills are rounded to them, so a CSV and a
+            Parquet output of the same fill hold the same values.
         """
         enc = cls(kinds=dict(kinds))
         integer = integer or {}
@@ -112,7 +119,13 @@ class Encoding:
             finite = values[np.isfinite(values)]
             if len(finite):
                 enc.ranges[name] = (float(finite.min()), float(finite.max()))
-            enc.integer[name] = bool(integer.get(name, pd.api.types.is_integer_dtype(column)))
+            # Whole numbers stored as floats (a count with holes, read from Parquet) get whole
+            # fills too; the column keeps its float type.
+            whole = len(finite) > 0 and kind == "numeric" and bool(np.all(np.mod(finite, 1) == 0))
+            enc.integer[name] = bool(integer.get(name, False)
+                                     or pd.api.types.is_integer_dtype(column) or whole)
+            if decimals and name in decimals:
+                enc.decimals[name] = int(decimals[name])
             if kind == "datetime":
                 fmt = date_formats.get(name)
                 if fmt is None or "%S" in fmt:
@@ -168,10 +181,13 @@ class Encoding:
                     step = self.resolution.get(name, 1)
                     seconds = np.round(raw / step) * step
                     values = seconds.astype("int64").astype("datetime64[s]")
-                elif self.integer.get(name):
-                    values = np.round(raw)
                 else:
-                    values = raw
+                    if self.integer.get(name):
+                        raw = np.round(raw)
+                    elif name in self.decimals:
+                        raw = np.round(raw, self.decimals[name])
+                    # rounding must not step outside the observed range either
+                    values = np.clip(raw, *self.ranges[name]) if name in self.ranges else raw
             out[name] = _assign(out[name], holes, values)
         return out
 

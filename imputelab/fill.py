@@ -60,7 +60,8 @@ def _specs(plan: Plan) -> dict[str, ColumnSpec]:
     return out
 
 
-def check_plan(plan: Plan, table: Table, *, force: bool = False) -> list[str]:
+def check_plan(plan: Plan, table: Table, *, force: bool = False,
+               content: bool = True) -> list[str]:
     """Check that a plan fits a table.
 
     Raises
@@ -91,7 +92,7 @@ def check_plan(plan: Plan, table: Table, *, force: bool = False) -> list[str]:
                                       "planned columns present and pass the others through")
         warnings.append(message)
     fingerprint = plan.source.get("fingerprint", "")
-    if fingerprint and fingerprint != f"sha256:{table.fingerprint}":
+    if content and fingerprint and fingerprint != f"sha256:{table.fingerprint}":
         message = (f"{where}, and '{table.path}' has different content "
                    f"(fingerprint {fingerprint[:19]}... vs sha256:{table.fingerprint[:12]}...)")
         if not force:
@@ -204,6 +205,16 @@ def fill_frame(
         if bad:
             raise PlanError(f"plan: column '{bad[0]}': {reasons[bad[0]]}; "
                             "choose another method in the plan")
+        if fit_on is None:
+            # Filling this file only: a column without holes is a feature, not a model to fit
+            # (it never changes, so the fill is the same and much cheaper on wide tables).
+            holes = {n for n in joint if work[n].isna().any()}
+            joint = [n for n in joint if n in holes]
+            if not any(n in holes for n in columns):
+                for name in columns:
+                    filled[name] = work[name]
+                    report.methods[name] = method_name
+                continue
         edited = {k: v for k, v in method.get_params().items()
                   if k != "random_state" and v != METHODS[method_name]().get_params()[k]}
         try:
@@ -304,7 +315,17 @@ def fill_table(
     report : FillReport
     """
     report = FillReport()
-    report.warnings.extend(check_plan(plan, table, force=force or fit_on is not None))
+    if fit_on is None:
+        report.warnings.extend(check_plan(plan, table, force=force))
+    else:
+        lacking = [c for c in plan.columns if c in table.frame.columns
+                   and c not in fit_on.frame.columns]
+        if lacking:
+            raise DataError(f"--fit-on '{fit_on.path}' lacks columns {', '.join(lacking)}")
+        # The methods are fitted on the reference, which must be the planned file; the file
+        # to fill is new by design, so only its columns are checked.
+        report.warnings.extend(check_plan(plan, fit_on, force=force))
+        report.warnings.extend(check_plan(plan, table, force=True, content=False))
     typed, report.new_tokens = clean_with_plan(table, plan)
     for name, tokens in report.new_tokens.items():
         shown = ", ".join(f"'{t}' ({c})" for t, c in list(tokens.items())[:5])

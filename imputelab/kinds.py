@@ -268,7 +268,11 @@ def suspected_codes(values: np.ndarray) -> list[float]:
             continue
         q1, q3 = np.percentile(rest, [25, 75])
         fence = 1.5 * max(q3 - q1, 1e-12)
-        if extreme > q3 + fence or extreme < q1 - fence or negative_code:
+        # ... and apart from the others: a 9 at the top of a 1-9 scale is a rating, not a code
+        gap = float(np.min(np.abs(rest - extreme)))
+        spread = float(rest.max() - rest.min())
+        apart = gap > 0.5 * spread
+        if (extreme > q3 + fence or extreme < q1 - fence) and apart or negative_code:
             found.append(float(extreme))
     return sorted(found)
 
@@ -388,6 +392,9 @@ def infer_spec(
                 and not present[good].str.contains(r"[.,]", regex=True).any()
             )
             spec.decimals = 0 if spec.integer else _decimals(present[good])
+            if (kind is None and spec.integer and not spec.missing_codes
+                    and int(good.sum()) == len(raw) and looks_like_row_key(whole)):
+                spec.kind = "identifier"
         if kind is None and spec.kind == "categorical":
             # Confirmed codes are not labels: "yes", "no" and a code make a binary column.
             labels = present[~_code_mask(present, spec.missing_codes, False, decimal)]
@@ -410,6 +417,14 @@ def infer_spec(
             spec.kind = "binary"
     _, spec.tokens = clean_column(raw, spec, decimal=decimal)
     return spec
+
+
+def looks_like_row_key(values: np.ndarray) -> bool:
+    """Whole numbers that number the rows: unique and gap-free (1, 2, 3, ...), or unique over
+    at least 100 rows (parcel or account numbers). Common practice, no source."""
+    if len(values) <= 20 or len(np.unique(values)) != len(values):
+        return False
+    return bool((np.diff(np.sort(values)) == 1).all()) or len(values) >= 100
 
 
 def _label_kind(present: pd.Series, n_rows: int) -> str:
@@ -437,10 +452,9 @@ def _typed_kind(raw: pd.Series) -> str:
     if isinstance(dtype, pd.CategoricalDtype):
         return "binary" if len(raw.dropna().unique()) == 2 else "categorical"
     if pd.api.types.is_numeric_dtype(dtype):
-        present = raw.dropna()
-        if pd.api.types.is_integer_dtype(dtype) and present.is_unique and len(present) == len(
-            raw
-        ) and len(raw) > 20 and bool((np.diff(np.sort(present.to_numpy())) == 1).all()):
+        values = raw.dropna().to_numpy(float)
+        whole = bool(len(values)) and bool(np.all(np.mod(values, 1) == 0))
+        if whole and len(values) == len(raw) and looks_like_row_key(values):
             return "identifier"
         return "numeric"
     return "categorical"

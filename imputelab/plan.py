@@ -208,7 +208,8 @@ def choose_method(
                                        rank.get(m, 99)))
     ranking = sorted(usable, key=lambda m: sign * usable[m][0])
     runner = next((m for m in ranking if m != best), None)
-    text = f"{best} had the best mean {metric} ({best_mean:.4g} ± {best_se:.2g} SE)"
+    spread = f"± {best_se:.2g} SE" if best_se > 0 else "one draw: no SE"
+    text = f"{best} had the best mean {metric} ({best_mean:.4g} {spread})"
     if chosen != best:
         text += (f"; {chosen} ({usable[chosen][0]:.4g}) is within one standard error and "
                  "simpler, so it is chosen")

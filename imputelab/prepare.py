@@ -49,5 +49,7 @@ def working_setup(
         typed, kinds,
         integer={n: specs[n].integer for n in used},
         date_formats={n: specs[n].date_format for n in used},
+        decimals={n: specs[n].decimals for n in used
+                  if specs[n].kind == "numeric" and not specs[n].integer},
     )
     return targets, encoding

@@ -188,7 +188,11 @@ def plan_from_experiment(
                                         order=methods)
             plan.method = chosen
             draws = summary[chosen]["draws"]
-            plan.reason = f"{why} (over {draws} masked draws: {', '.join(options.masks)})"
+            plural = "s" if draws != 1 else ""
+            plan.reason = f"{why} (over {draws} masked draw{plural}: {', '.join(options.masks)})"
+        elif name in scored:
+            plan.method, plan.reason = _fallback(
+                kind, survey.typed[name], why="every candidate method failed on this column")
         else:
             plan.method, plan.reason = _fallback(kind, survey.typed[name])
         if plan.method is not None:

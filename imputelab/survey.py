@@ -18,6 +18,7 @@ from imputelab.kinds import (
     infer_spec,
     numeric_codes,
     observed_numbers,
+    parse_numbers,
     suspected_codes,
 )
 
@@ -131,6 +132,9 @@ class Survey:
             "rows": self.rows,
             "columns": {name: col.to_dict() for name, col in self.columns.items()},
             "drop_threshold": self.options.drop_threshold,
+            "format": self.table.format,
+            "delimiter": self.table.delimiter,
+            "decimal": self.table.decimal,
         }
         if self.options.target is not None:
             out["target"] = self.options.target
@@ -206,10 +210,41 @@ def survey_table(table: Table, options: SurveyOptions | None = None) -> Survey:
             notes.append("a single distinct value: methods that need variance are skipped")
         if spec.missing_codes:
             notes.append(f"missing codes: {', '.join(str(_plain(c)) for c in spec.missing_codes)}")
+            absent = _absent_codes(raw, spec, table.decimal)
+            if absent:
+                notes.append(f"--missing-code {', '.join(str(_plain(c)) for c in absent)} "
+                             "not found in this column")
+        if spec.kind in ("text", "categorical") and spec.kind_source == "inferred":
+            share = _number_share(raw, table.decimal)
+            if share >= 0.5:
+                notes.append(f"{share:.0%} of its cells are numbers; if it is numeric, say "
+                             f"--kind {name}=numeric")
         drop = fraction > options.drop_threshold and name != options.target
         columns[name] = ColumnSurvey(name, spec, missing, fraction, codes, drop, notes)
     typed_frame = pd.DataFrame(typed, index=frame.index)
     return Survey(table=table, options=options, columns=columns, typed=typed_frame)
+
+
+def _absent_codes(raw: pd.Series, spec: ColumnSpec, decimal: str) -> list[Any]:
+    text = raw.astype("str").str.strip()
+    numbers = set(parse_numbers(text, decimal).dropna().tolist())
+    labels = set(text.tolist())
+    absent = []
+    for code in spec.missing_codes:
+        number = numeric_codes([code])
+        if (number and number[0] in numbers) or str(code).strip() in labels:
+            continue
+        absent.append(code)
+    return absent
+
+
+def _number_share(raw: pd.Series, decimal: str) -> float:
+    if not pd.api.types.is_string_dtype(raw.dtype):
+        return 0.0
+    present = raw[raw.str.strip() != ""]
+    if not len(present):
+        return 0.0
+    return float(parse_numbers(present, decimal).notna().mean())
 
 
 def _blank_count(raw: pd.Series) -> int:

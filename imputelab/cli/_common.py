@@ -19,7 +19,10 @@ from imputelab.errors import ImputelabError, OptionError
 
 F = TypeVar("F", bound=Callable[..., Any])
 
+# A pipe or a log gets 120 columns rather than rich's 80, so tables stay readable.
 out = Console(highlight=False, soft_wrap=False)
+if not out.is_terminal and "COLUMNS" not in os.environ:
+    out = Console(highlight=False, soft_wrap=False, width=120)
 err = Console(stderr=True, highlight=False)
 
 

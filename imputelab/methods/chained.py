@@ -156,7 +156,8 @@ class _ChainedFill(FillMethod):
 
     def _fit_column(self, categorical: bool, features: Any, target: np.ndarray, seed: int,
                     fallback: Any) -> Any:
-        if len(target) < 2 or len(np.unique(target)) < 2:
+        if len(target) < 2 or len(np.unique(target)) < 2 or features.shape[1] == 0:
+            # nothing to learn, or nothing to learn it from: the observed mean or mode
             if len(target) == 0:
                 return _Constant(fallback)
             values, counts = np.unique(target, return_counts=True)
