@@ -194,10 +194,8 @@ def survey_table(table: Table, options: SurveyOptions | None = None) -> Survey:
             codes = [c for c in suspected_codes(observed) if c not in confirmed]
             for code in codes:
                 count = int(np.sum(observed == code))
-                notes.append(
-                    f"{_plain(code)} appears {count} times at the edge of the range: a missing "
-                    f"code? confirm with --missing-code {name}={_plain(code)}"
-                )
+                notes.append(f"{_plain(code)} x{count} at the edge of the range: a code? "
+                             f"--missing-code {name}={_plain(code)}")
         if spec.ambiguous_formats:
             notes.append(
                 f"dates read as {spec.date_format} but {', '.join(spec.ambiguous_formats)} also "

@@ -25,10 +25,13 @@ def survey_rich_table(survey: Survey) -> RichTable:
     table = RichTable(title=f"{survey.table.path.name}: {survey.rows} rows, "
                             f"{len(survey.columns)} columns", title_justify="left")
     table.add_column("column", no_wrap=True)
-    for header, justify in (("kind", "left"), ("missing", "right"),
-                            ("missing %", "right"), ("tokens read as missing", "left"),
-                            ("suspected codes", "left"), ("drop", "left"), ("notes", "left")):
-        table.add_column(header, justify=justify, overflow="fold")
+    table.add_column("kind")
+    table.add_column("missing", justify="right")
+    table.add_column("missing %", justify="right")
+    table.add_column("tokens read as missing", overflow="fold", ratio=1)
+    table.add_column("codes?")
+    table.add_column("drop")
+    table.add_column("notes", overflow="fold", ratio=2)
     for name, col in survey.columns.items():
         tokens = ", ".join(f"'{t}' x{c}" for t, c in col.spec.tokens.items())
         codes = ", ".join(f"{c:g}" for c in col.suspected_codes)
