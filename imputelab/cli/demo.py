@@ -40,20 +40,20 @@ def demo(
     """Generate the demo trip log, then survey it, score the methods and fill it."""
     start = time.perf_counter()
     out_dir.mkdir(parents=True, exist_ok=True)
-    talk = not (quiet or json)
+    chatty = not (quiet or json)
     data = write_trip_log(out_dir / "trips.csv", n_trips=rows)
     table = read_table(data)
-    if talk:
+    if chatty:
         out.rule("1. survey: what is in the file")
     # The survey flags driver_rating's 99 as a suspected code; the demo confirms it, as a user
     # who knows that 99 means "no rating given" would with --missing-code driver_rating=99.
     options = ScoreOptions(survey=SurveyOptions(missing_codes=DEMO_CODES, target=DEMO_TARGET),
                            seed=seed, n_jobs=jobs or (os.cpu_count() or 1))
-    with progress_bar("scoring methods", quiet=not talk) as update:
+    with progress_bar("scoring methods", quiet=not chatty) as update:
         plan, survey, _ = score_table(table, options, progress=update)
     survey_path = out_dir / "survey.json"
     survey_path.write_text(jsonlib.dumps(survey.to_dict(), indent=2) + "\n", encoding="utf-8")
-    if talk:
+    if chatty:
         out.print(survey_rich_table(survey))
         out.rule("2. score: every method against hidden truth")
         out.print(scores_rich_table(plan))
@@ -67,7 +67,7 @@ def demo(
     if json:
         print_json(where)
         return
-    if talk:
+    if chatty:
         out.rule("3. fill: the plan applied")
         out.print(report_rich_table(report))
         out.print(f"\nDone in {seconds:.0f} s.")
