@@ -188,6 +188,9 @@ def plan_from_experiment(
                                         order=methods)
             plan.method = chosen
             draws = summary[chosen]["draws"]
+            if chosen == "constant":
+                fills = "0" if metric_kind == "numeric" else "the new label 'missing'"
+                why += f"; constant fills {fills}"
             plural = "s" if draws != 1 else ""
             plan.reason = f"{why} (over {draws} masked draw{plural}: {', '.join(options.masks)})"
         elif name in scored:
