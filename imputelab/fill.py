@@ -180,23 +180,7 @@ def fill_frame(
     seed = int(plan.settings.get("seed", 0))
     filled = work.copy()
     for method_name, params, columns in _groups(plan, targets).values():
-        if method_name not in METHODS:
-            raise PlanError(f"plan: column '{columns[0]}' names method '{method_name}'; "
-                            f"choose from: {', '.join(get_method_names())}")
-        # A user who edits only "method" leaves the old method's params behind: keep the ones
-        # the new method takes and say which were set aside.
-        known = METHODS[method_name]._get_param_names()
-        ignored = sorted(set(params) - set(known))
-        if ignored:
-            report.warnings.append(
-                f"column(s) {', '.join(columns)}: {method_name} has no parameter "
-                f"{', '.join(ignored)}; ignored")
-        try:
-            method = get_method(method_name, **{k: v for k, v in params.items() if k in known})
-        except Exception as exc:
-            raise PlanError(f"plan: column '{columns[0]}': {exc}") from None
-        if "random_state" in method.get_params():
-            method.set_params(random_state=derive_seed(seed, "fill", method_name))
+        method = _make_method(method_name, params, columns, seed, report)
         reasons = {n: method.unsupported_reason(encoding.kinds[n], typed[n].dtype,
                                                 len(encoding.categories.get(n, [])) or None)
                    for n in targets}
@@ -211,9 +195,7 @@ def fill_frame(
             holes = {n for n in joint if work[n].isna().any()}
             joint = [n for n in joint if n in holes]
             if not any(n in holes for n in columns):
-                for name in columns:
-                    filled[name] = work[name]
-                    report.methods[name] = method_name
+                report.methods.update(dict.fromkeys(columns, method_name))
                 continue
         edited = {k: v for k, v in method.get_params().items()
                   if k != "random_state" and v != METHODS[method_name]().get_params()[k]}
@@ -239,6 +221,28 @@ def fill_frame(
     report.dropped = [n for n, a in actions.items() if a == "drop"]
     report.excluded = [n for n, a in actions.items() if a == "exclude"]
     return result.drop(columns=report.dropped)
+
+
+def _make_method(name: str, params: Mapping[str, Any], columns: list[str], seed: int,
+                 report: FillReport) -> Any:
+    """The plan's method for a group of columns, seeded for the fill."""
+    if name not in METHODS:
+        raise PlanError(f"plan: column '{columns[0]}' names method '{name}'; "
+                        f"choose from: {', '.join(get_method_names())}")
+    # A user who edits only "method" leaves the old method's params behind: keep the ones the
+    # new method takes and say which were set aside.
+    known = METHODS[name]._get_param_names()
+    ignored = sorted(set(params) - set(known))
+    if ignored:
+        report.warnings.append(f"column(s) {', '.join(columns)}: {name} has no parameter "
+                               f"{', '.join(ignored)}; ignored")
+    try:
+        method = get_method(name, **{k: v for k, v in params.items() if k in known})
+    except Exception as exc:
+        raise PlanError(f"plan: column '{columns[0]}': {exc}") from None
+    if "random_state" in method.get_params():
+        method.set_params(random_state=derive_seed(seed, "fill", name))
+    return method
 
 
 def _fit_fill(method: Any, fit_working: pd.DataFrame, work: pd.DataFrame,
