@@ -16,7 +16,6 @@ that was surveyed and on any later file.
 
 from __future__ import annotations
 
-import math
 import re
 from dataclasses import asdict, dataclass, field
 from typing import Any
@@ -544,9 +543,3 @@ def clean_column(
         values = raw.str.strip().where(~pd.Series(missing, index=raw.index))
         return values.astype("str"), _tokens(raw, missing & ~codes)
     return raw.mask(pd.Series(missing, index=raw.index)), {}
-
-
-def nan_safe_float(value: Any) -> float | None:
-    """``None`` for NaN, else a float (for JSON)."""
-    value = float(value)
-    return None if math.isnan(value) else value

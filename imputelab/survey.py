@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -249,8 +249,3 @@ def _blank_count(raw: pd.Series) -> int:
     if pd.api.types.is_string_dtype(raw.dtype):
         return int((raw.isna() | raw.str.strip().eq("")).sum())
     return int(raw.isna().sum())
-
-
-def kinds_of(columns: Mapping[str, ColumnSurvey]) -> dict[str, str]:
-    """Kind per column."""
-    return {name: col.spec.kind for name, col in columns.items()}

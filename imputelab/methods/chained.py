@@ -194,13 +194,14 @@ class _ChainedFill(FillMethod):
 
     def fit_transform(self, X: pd.DataFrame, targets=None) -> pd.DataFrame:
         """Fit on ``X`` and return its fill (the chain's own last state; no second pass)."""
-        self.fit(X, targets)
+        super().fit(X, targets)
         state, self._fitted_state = self._fitted_state, None
         return self._keep_observed(X, state)
 
     def fit(self, X: pd.DataFrame, targets=None) -> _ChainedFill:
-        """Fit the chain; see :meth:`FillMethod.fit`."""
+        """Fit the chain; see :meth:`FillMethod.fit`. The training fill is not kept."""
         super().fit(X, targets)
+        self._fitted_state = None
         return self
 
 
