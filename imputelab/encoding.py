@@ -12,7 +12,7 @@ made by :func:`with_derived` after masking, so a hidden timestamp never leaks th
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Collection, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -157,10 +157,14 @@ class Encoding:
                 data[name] = pd.to_numeric(column, errors="coerce").to_numpy(float, na_value=np.nan)
         return pd.DataFrame(data, index=typed.index)
 
-    def decode(self, working: pd.DataFrame, typed: pd.DataFrame) -> pd.DataFrame:
+    def decode(self, working: pd.DataFrame, typed: pd.DataFrame,
+               unclipped: Collection[str] = ()) -> pd.DataFrame:
         """Put a filled working frame's values into the holes of ``typed``.
 
         Only cells missing in ``typed`` change; every other cell and every dtype is kept.
+        Numeric fills are clipped to the observed range, except in ``unclipped`` columns
+        (filled with a constant someone chose, such as 0 for "no garage": it may lie
+        outside every observed value on purpose).
         """
         out = typed.copy()
         for name, kind in self.kinds.items():
@@ -175,8 +179,9 @@ class Encoding:
                 values = np.asarray(filled.astype(object))[holes]
             else:
                 raw = filled.to_numpy(float)[holes]
-                if name in self.ranges:
-                    raw = np.clip(raw, *self.ranges[name])
+                bounds = self.ranges.get(name) if name not in unclipped else None
+                if bounds is not None:
+                    raw = np.clip(raw, *bounds)
                 if kind == "datetime":
                     step = self.resolution.get(name, 1)
                     seconds = np.round(raw / step) * step
@@ -187,7 +192,7 @@ class Encoding:
                     elif name in self.decimals:
                         raw = np.round(raw, self.decimals[name])
                     # rounding must not step outside the observed range either
-                    values = np.clip(raw, *self.ranges[name]) if name in self.ranges else raw
+                    values = np.clip(raw, *bounds) if bounds is not None else raw
             out[name] = _assign(out[name], holes, values)
         return out
 

@@ -25,7 +25,7 @@ from threadpoolctl import threadpool_limits
 from imputelab.encoding import is_categorical, with_derived
 from imputelab.masks import get_mask
 from imputelab.methods import get_method
-from imputelab.metrics import score_cells
+from imputelab.metrics import correlation_shift, score_cells, variance_ratio
 
 __all__ = ["ExperimentResult", "derive_seed", "run_experiment"]
 
@@ -94,21 +94,46 @@ def _score_task(
             last = traceback.format_exception_only(type(exc), exc)[-1].strip()
             return [], time.perf_counter() - start, last
         seconds = time.perf_counter() - start
+    numeric = [n for n in columns if not is_categorical(working[n])]
     rows_out = []
     for j, name in enumerate(columns):
         if name not in targets:
             continue
         cells = hidden[:, j]
+        if not cells.any():  # e.g. a pattern mask replaying no hole in this column
+            continue
         truth, guess = working[name][cells], filled[name][cells]
         if is_categorical(working[name]):
             record = score_cells("categorical", truth.astype(object).to_numpy(),
                                  guess.astype(object).to_numpy())
+            record["distribution"] = record["total_variation"]
+            record["balanced"] = 0.5 * (record["pfc"] + record["distribution"])
         else:
             record = score_cells("numeric", truth.to_numpy(float), guess.to_numpy(float),
                                  scales[name])
+            record.update(_distribution_checks(working, filled, name, numeric, cells))
+            # With no other numeric column there is no correlation to keep: distance alone.
+            shift = record["corr_shift"]
+            record["distribution"] = record["wasserstein"] + (shift if np.isfinite(shift) else 0)
+            record["balanced"] = 0.5 * (record["nrmse"] + record["distribution"])
         record.update(column=name, method=method, n_hidden=int(cells.sum()))
         rows_out.append(record)
     return rows_out, seconds, None
+
+
+def _distribution_checks(working: pd.DataFrame, filled: pd.DataFrame, name: str,
+                         numeric: Sequence[str], cells: np.ndarray) -> dict[str, float]:
+    """Variance ratio on the hidden cells, correlation shift over the whole column."""
+    others = [n for n in numeric if n != name and n in filled.columns]
+    shift = (correlation_shift(working[name].to_numpy(float), filled[name].to_numpy(float),
+                               working[others].to_numpy(float), filled[others].to_numpy(float))
+             if others else float("nan"))
+    out = {
+        "variance_ratio": variance_ratio(working[name][cells].to_numpy(float),
+                                         filled[name][cells].to_numpy(float)),
+        "corr_shift": shift,
+    }
+    return out
 
 
 def run_experiment(

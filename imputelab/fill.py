@@ -20,7 +20,15 @@ from imputelab.methods import METHODS, get_method, get_method_names
 from imputelab.plan import Plan
 from imputelab.prepare import working_setup
 
-__all__ = ["FillReport", "check_plan", "clean_with_plan", "fill_frame", "fill_table"]
+__all__ = [
+    "INDICATOR_SUFFIX",
+    "FillReport",
+    "check_plan",
+    "clean_with_plan",
+    "fill_frame",
+    "fill_table",
+    "missing_indicators",
+]
 
 
 @dataclass
@@ -215,7 +223,8 @@ def fill_frame(
         for name in columns:
             filled[name] = out[name]
             report.methods[name] = method_name
-    result = encoding.decode(filled, typed)
+    constants = [n for n in targets if plan.columns[n].method == "constant"]
+    result = encoding.decode(filled, typed, unclipped=constants)
     for name in targets:
         report.filled[name] = int(typed[name].isna().sum() - result[name].isna().sum())
     report.dropped = [n for n, a in actions.items() if a == "drop"]
@@ -347,6 +356,36 @@ def fill_table(
         if name not in plan.columns:
             filled[name] = typed[name]
     filled = filled[[c for c in typed.columns if c in filled.columns]]
+    flags = missing_indicators(typed, plan, filled.columns)
     if table.is_text and text_output:
-        return render_text(table, typed, filled, _specs(plan)), report
-    return filled, report
+        out = render_text(table, typed, filled, _specs(plan))
+        return pd.concat([out, flags.astype("str")], axis=1), report
+    return pd.concat([filled, flags], axis=1), report
+
+
+INDICATOR_SUFFIX = "__was_missing"
+
+
+def missing_indicators(typed: pd.DataFrame, plan: Plan, columns: Any) -> pd.DataFrame:
+    """``NAME__was_missing`` (0/1, int8) for each imputed column whose plan asks for one.
+
+    The flags follow the table's column order and go after all the table's columns, so
+    every original column keeps its position.
+
+    Raises
+    ------
+    PlanError
+        If an indicator's name is already a column of the table.
+    """
+    flags = {}
+    for name in typed.columns:
+        col = plan.columns.get(name)
+        if col is None or not col.indicator or col.action != "impute":
+            continue
+        flag = f"{name}{INDICATOR_SUFFIX}"
+        if flag in typed.columns or flag in columns:
+            raise PlanError(f"plan: column '{name}' asks for an indicator, but the table "
+                            f"already has a column '{flag}'; rename it or set \"indicator\": "
+                            "false")
+        flags[flag] = typed[name].isna().astype("int8")
+    return pd.DataFrame(flags, index=typed.index)

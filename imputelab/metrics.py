@@ -38,7 +38,9 @@ __all__ = [
     "METRICS",
     "PRIMARY",
     "Metric",
+    "DISTRIBUTION_CHECKS",
     "accuracy",
+    "correlation_shift",
     "get_metric",
     "get_metric_names",
     "mae",
@@ -48,6 +50,7 @@ __all__ = [
     "rmse",
     "score_cells",
     "total_variation",
+    "variance_ratio",
     "wasserstein",
 ]
 
@@ -447,6 +450,100 @@ def total_variation(true: Any, filled: Any) -> float:
     0.5
     """
     return _total_variation_codes(*_encode(true, filled))
+
+
+# ------------------------------------------------------------------- distribution checks
+
+
+def variance_ratio(true: Any, filled: Any) -> float:
+    """Variance of the filled values over the variance of the hidden true values.
+
+    1 means the fills are as spread out as the values they replace; mean imputation gives
+    0, the flattening that accuracy scores reward. Both variances use ``ddof=0``.
+
+    Parameters
+    ----------
+    true, filled : array-like, shape (n,)
+        Hidden values and the values put in their place.
+
+    Returns
+    -------
+    float
+        The ratio; nan when ``n < 2`` or the true values have no spread.
+
+    Examples
+    --------
+    >>> variance_ratio([0.0, 2.0, 4.0], [1.0, 2.0, 3.0])
+    0.25
+    """
+    t, f = _numeric_pair(true, filled)
+    if t.size < 2:
+        return math.nan
+    spread = float(np.var(t))
+    if not spread > 0:
+        return math.nan
+    return float(np.var(f)) / spread
+
+
+def _pearson(a: np.ndarray, b: np.ndarray) -> float:
+    a = a - a.mean()
+    b = b - b.mean()
+    denom = math.sqrt(float(a @ a) * float(b @ b))
+    return float(a @ b) / denom if denom > 0 else math.nan
+
+
+def correlation_shift(
+    true: Any, filled: Any, others_true: np.ndarray, others_filled: np.ndarray
+) -> float:
+    """Mean absolute change of a column's correlations with the other columns after filling.
+
+    For each other column ``j``, the Pearson correlation of the column with column ``j`` is
+    computed twice over the same rows (those where both *true* values are known): once on
+    the true values, once on the filled ones; the result is the mean of ``|r_filled -
+    r_true|`` over the other columns. Filling with a constant pulls correlations towards 0;
+    a good model keeps them.
+
+    Parameters
+    ----------
+    true, filled : array-like, shape (n,)
+        The whole column before masking (nan where it was really missing) and after filling.
+    others_true, others_filled : ndarray of shape (n, q)
+        The other numeric columns, before masking and after filling.
+
+    Returns
+    -------
+    float
+        Mean absolute shift, in [0, 2]; nan when there is no other column with at least 3
+        shared rows and spread in both.
+
+    Examples
+    --------
+    >>> t = np.array([1.0, 2.0, 3.0, 4.0]); o = t[:, None] * 2
+    >>> correlation_shift(t, np.array([1.0, 2.5, 2.5, 4.0]), o, o)
+    0.0513...
+    """
+    t, f = _numeric_pair(true, filled)
+    ot = np.asarray(others_true, dtype=float).reshape(len(t), -1)
+    of = np.asarray(others_filled, dtype=float).reshape(len(t), -1)
+    shifts = []
+    for j in range(ot.shape[1]):
+        rows = np.isfinite(t) & np.isfinite(ot[:, j]) & np.isfinite(f) & np.isfinite(of[:, j])
+        if rows.sum() < 3:
+            continue
+        before = _pearson(t[rows], ot[rows, j])
+        after = _pearson(f[rows], of[rows, j])
+        if math.isfinite(before) and math.isfinite(after):
+            shifts.append(abs(after - before))
+    return float(np.mean(shifts)) if shifts else math.nan
+
+
+DISTRIBUTION_CHECKS: dict[str, str] = {
+    "variance_ratio": "variance of the fills / variance of the hidden values (1 is ideal)",
+    "corr_shift": "mean |change| of the column's correlations with the other numeric columns",
+    "distribution": "wasserstein + corr_shift for numbers; total_variation for labels "
+                    "(lower is better)",
+}
+"""Scores reported beside the accuracy metrics; they are not primary metrics."""
 
 
 # ---------------------------------------------------------------------------------- registry

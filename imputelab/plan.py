@@ -6,11 +6,12 @@ A plan is plain data written as versioned JSON that a person can read and edit::
      "source": {"file", "rows", "columns", "fingerprint", ...},
      "settings": {...},
      "columns": {NAME: {"kind", "missing_fraction", "action", "method", "params",
-                        "reason", "scores": {METHOD: {METRIC: VALUE}}, "cleaning": {...}}}}
+                        "reason", "scores": {METHOD: {METRIC: VALUE}}, "cleaning": {...},
+                        "indicator": false, "evidence": {...}}}}
 
 ``action`` is ``impute``, ``drop`` (removed from the output) or ``exclude`` (passed through
-unchanged: identifiers, free text, the target). A user may change ``method``, ``params`` or
-``action`` and run ``fill`` again.
+unchanged: identifiers, free text, the target). A user may change ``method``, ``params``,
+``action`` or ``indicator`` and run ``fill`` again.
 """
 
 from __future__ import annotations
@@ -26,10 +27,20 @@ from imputelab.errors import PlanError
 from imputelab.io import atomic_path
 from imputelab.kinds import KINDS
 
-__all__ = ["ACTIONS", "PLAN_FORMAT", "PLAN_VERSION", "ColumnPlan", "Plan", "choose_method"]
+__all__ = [
+    "ACTIONS",
+    "PLAN_FORMAT",
+    "PLAN_VERSION",
+    "READABLE_VERSIONS",
+    "ColumnPlan",
+    "Plan",
+    "choose_method",
+]
 
 PLAN_FORMAT = "imputelab-plan"
-PLAN_VERSION = 1
+PLAN_VERSION = 2
+#: Versions this imputelab reads: version 1 lacks ``indicator`` and ``evidence``.
+READABLE_VERSIONS = (1, 2)
 ACTIONS = ("impute", "drop", "exclude")
 
 
@@ -68,6 +79,12 @@ class ColumnPlan:
         Methods that could not fill the column, with the reason.
     cleaning : dict
         How cells were read: see :class:`imputelab.kinds.ColumnSpec`.
+    indicator : bool
+        Add a 0/1 column ``NAME__was_missing`` beside the filled table (``fill``).
+    evidence : dict
+        What the survey found about the column's blanks: ``missingness`` (can the other
+        columns predict them), ``structural`` (rules that say when a blank is not missing)
+        and ``hints``.
     """
 
     kind: str
@@ -79,6 +96,8 @@ class ColumnPlan:
     scores: dict[str, dict[str, float]] = field(default_factory=dict)
     skipped: dict[str, str] = field(default_factory=dict)
     cleaning: dict[str, Any] = field(default_factory=dict)
+    indicator: bool = False
+    evidence: dict[str, Any] = field(default_factory=dict)
 
 
 @dataclass
@@ -117,10 +136,11 @@ class Plan:
         """Validate and build a plan from its JSON form."""
         if not isinstance(data, Mapping) or data.get("format") != PLAN_FORMAT:
             raise PlanError(f"{origin} is not an imputelab plan (no \"format\": \"{PLAN_FORMAT}\")")
-        if data.get("version") != PLAN_VERSION:
+        if data.get("version") not in READABLE_VERSIONS:
+            readable = " and ".join(str(v) for v in READABLE_VERSIONS)
             raise PlanError(
                 f"{origin} is plan version {data.get('version')!r}; this imputelab reads "
-                f"version {PLAN_VERSION}: run score again to make a new plan"
+                f"versions {readable}: run score again to make a new plan"
             )
         for section in ("source", "settings", "columns"):
             if not isinstance(data.get(section, {}), Mapping):
@@ -140,6 +160,9 @@ class Plan:
                 )
             if col.kind not in KINDS:
                 raise PlanError(f"{origin}: column '{name}' has unknown kind '{col.kind}'")
+            if not isinstance(col.indicator, bool):
+                raise PlanError(f"{origin}: column '{name}': \"indicator\" must be true or "
+                                "false")
             if col.action == "impute" and not col.method:
                 raise PlanError(f"{origin}: column '{name}' is to be imputed but has no method")
             columns[name] = col

@@ -4,13 +4,14 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from importlib.metadata import PackageNotFoundError, version
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from imputelab.diagnostics import ABSENT_LABEL
 from imputelab.errors import OptionError
 from imputelab.experiment import ExperimentResult, derive_seed, run_experiment
 from imputelab.io import Table
@@ -19,12 +20,20 @@ from imputelab.methods import METHODS, get_method_names
 from imputelab.metrics import PRIMARY, get_metric
 from imputelab.plan import ColumnPlan, Plan, choose_method
 from imputelab.prepare import default_action, working_setup
-from imputelab.survey import Survey, SurveyOptions, survey_table
+from imputelab.survey import ColumnSurvey, Survey, SurveyOptions, survey_table
 
-__all__ = ["DEFAULT_MASKS", "ScoreOptions", "plan_from_experiment", "score_table"]
+__all__ = ["CHOOSE_BY", "DEFAULT_MASKS", "ScoreOptions", "plan_from_experiment", "score_table"]
 
 DEFAULT_MASKS = ("mcar", "mar", "mnar")
+CHOOSE_BY = ("accuracy", "distribution", "balanced")
 MIN_OBSERVED = 10  # fewer observed cells than this cannot be split into hidden and kept
+
+
+_CHOICE_WORDS = {
+    "accuracy": "primary metric",
+    "distribution": "distribution score (wasserstein + corr_shift; total variation for labels)",
+    "balanced": "balanced score (mean of nrmse or pfc and the distribution score)",
+}
 
 
 def _version() -> str:
@@ -41,7 +50,9 @@ class ScoreOptions:
     Attributes
     ----------
     survey : SurveyOptions
-    masks : sequence of str
+    masks : sequence of str, optional
+        Mask names; by default :data:`DEFAULT_MASKS`, plus ``pattern`` when the scored
+        columns have holes whose patterns can be replayed.
     rate : float
         Share of each column's observed cells hidden per draw.
     repeats : int
@@ -56,10 +67,14 @@ class ScoreOptions:
     use_target : bool
         Let the target serve as a feature when filling the others.
     n_jobs : int
+    choose_by : {"accuracy", "distribution", "balanced"}
+        What the one-standard-error rule ranks by: the primary metric; ``distribution``
+        (wasserstein + corr_shift for numbers, total variation for labels); or
+        ``balanced``, the mean of nrmse (pfc for labels) and ``distribution``.
     """
 
     survey: SurveyOptions = field(default_factory=SurveyOptions)
-    masks: Sequence[str] = DEFAULT_MASKS
+    masks: Sequence[str] | None = None
     rate: float = 0.2
     repeats: int = 3
     seed: int = 0
@@ -68,6 +83,7 @@ class ScoreOptions:
     sample: int | None = 10_000
     use_target: bool = False
     n_jobs: int = 1
+    choose_by: str = "accuracy"
 
     def validate(self) -> None:
         """Check ranges and names; raise :class:`OptionError`."""
@@ -79,11 +95,11 @@ class ScoreOptions:
             raise OptionError(f"--repeats must be at least 1, got {self.repeats}")
         if self.sample is not None and self.sample < 20:
             raise OptionError(f"--sample must be at least 20 rows, got {self.sample}")
-        for name in self.masks:
+        for name in self.masks or ():
             if name not in get_mask_names():
                 raise OptionError(
                     f"--masks: unknown mask '{name}'; choose from: {', '.join(get_mask_names())}")
-        if not self.masks:
+        if self.masks is not None and not self.masks:
             raise OptionError("--masks: give at least one mask")
         for name in self.methods or ():
             if name not in METHODS:
@@ -92,27 +108,34 @@ class ScoreOptions:
                     f"{', '.join(get_method_names())}")
         if self.methods is not None and not self.methods:
             raise OptionError("--methods: give at least one method")
+        if self.choose_by not in CHOOSE_BY:
+            raise OptionError(f"--choose-by must be one of {', '.join(CHOOSE_BY)}, "
+                              f"got '{self.choose_by}'")
         for kind, metric in self.metrics.items():
             found = get_metric(metric)
             if found.kind != kind:
                 raise OptionError(f"--metric {metric} is a {found.kind} metric, not {kind}")
 
 
-def _summary(scores: pd.DataFrame, metric: str, masks: Sequence[str]) -> dict[str, dict]:
-    """Per method: every metric's mean, the primary metric's SE and per-mask means."""
+def _summary(scores: pd.DataFrame, metrics: Sequence[str],
+             masks: Sequence[str]) -> dict[str, dict]:
+    """Per method: every score's mean; for ``metrics``, the SE and per-mask means too."""
     out: dict[str, dict] = {}
     metric_cols = [c for c in scores.columns
                    if c not in ("column", "method", "mask", "repeat", "n_hidden")]
     for method, group in scores.groupby("method", sort=False):
         entry = {c: float(group[c].mean()) for c in metric_cols if group[c].notna().any()}
-        values = group[metric].to_numpy(float)
-        values = values[np.isfinite(values)]
-        se = float(values.std(ddof=1) / math.sqrt(len(values))) if len(values) > 1 else 0.0
-        entry[f"{metric}_se"] = se
-        for mask in masks:
-            part = group.loc[group["mask"] == mask, metric]
-            if len(part):
-                entry[f"{metric}@{mask}"] = float(part.mean())
+        for metric in dict.fromkeys(metrics):
+            if metric not in group:
+                continue
+            values = group[metric].to_numpy(float)
+            values = values[np.isfinite(values)]
+            se = float(values.std(ddof=1) / math.sqrt(len(values))) if len(values) > 1 else 0.0
+            entry[f"{metric}_se"] = se
+            for mask in masks:
+                part = group.loc[group["mask"] == mask, metric]
+                if len(part):
+                    entry[f"{metric}@{mask}"] = float(part.mean())
         out[str(method)] = entry
     return out
 
@@ -165,9 +188,10 @@ def plan_from_experiment(
                            f"{kind} column: passed through unchanged")
         elif name in scored and result is not None and len(result.scores):
             metric_kind = "numeric" if kind in ("numeric", "datetime") else "categorical"
-            metric = options.metrics.get(metric_kind, PRIMARY[metric_kind])
+            primary = options.metrics.get(metric_kind, PRIMARY[metric_kind])
+            metric = primary if options.choose_by == "accuracy" else options.choose_by
             rows = result.scores[result.scores["column"] == name]
-            summary = _summary(rows, metric, options.masks)
+            summary = _summary(rows, [primary, metric], options.masks)
             for method, entry in summary.items():
                 draws = int((rows["method"] == method).sum())
                 entry["draws"] = draws
@@ -183,9 +207,10 @@ def plan_from_experiment(
                 plan.params = _public_params(plan.method)
                 columns[name] = plan
                 continue
+            greater = metric == primary and get_metric(metric).greater_is_better
             chosen, why = choose_method(usable, simplicity, metric=metric,
-                                        greater_is_better=get_metric(metric).greater_is_better,
-                                        order=methods)
+                                        greater_is_better=greater, order=methods)
+            why += _distribution_note(summary, chosen, metric_kind)
             plan.method = chosen
             draws = summary[chosen]["draws"]
             if chosen == "constant":
@@ -200,6 +225,9 @@ def plan_from_experiment(
             plan.method, plan.reason = _fallback(kind, survey.typed[name])
         if plan.method is not None:
             plan.params = _public_params(plan.method)
+        plan.evidence = dict(col.evidence)
+        if action == "impute":
+            _apply_evidence(plan, col, survey.typed[name])
         columns[name] = plan
     source = {
         "file": survey.table.path.name,
@@ -219,9 +247,10 @@ def plan_from_experiment(
         "seed": options.seed,
         "methods": methods,
         "metrics": dict(options.metrics),
-        "choice": "lowest mean primary metric; the simplest method within one standard error "
-                  "wins (simplicity: constant < mean, median, mode < knn < chained-linear < "
-                  "chained-forest < chained-boosted)",
+        "choose_by": options.choose_by,
+        "choice": f"lowest mean {_CHOICE_WORDS[options.choose_by]}; the simplest method "
+                  "within one standard error wins (simplicity: constant < mean, median, mode "
+                  "< knn < chained-linear < chained-forest < chained-boosted)",
         "drop_threshold": options.survey.drop_threshold,
         "sample": options.sample,
         "experiment_rows": sample_rows,
@@ -230,6 +259,66 @@ def plan_from_experiment(
         "imputelab_version": _version(),
     }
     return Plan(source=source, settings=settings, columns=columns)
+
+
+def _apply_evidence(plan: ColumnPlan, col: ColumnSurvey, values: pd.Series) -> None:
+    """Carry the survey's evidence into the reason; fill structural blanks with a constant."""
+    check = col.evidence.get("missingness")
+    notes = []
+    if check and check.get("auc") is not None:
+        drivers = f", drivers: {', '.join(check['drivers'])}" if check["drivers"] else ""
+        notes.append(f"blanks: {check['verdict']} (AUC {check['auc']:.2f}, 95% "
+                     f"{check['auc_low']:.2f}-{check['auc_high']:.2f}{drivers})")
+    elif check:
+        notes.append(f"blanks: {check['verdict']}")
+    notes.extend(col.evidence.get("hints", []))
+    rules = col.evidence.get("structural") or []
+    rule = rules[0] if rules else None
+    if rule is not None and METHODS["constant"].unsupported_reason(plan.kind,
+                                                                    values.dtype) is None:
+        value = _structural_value(rule, plan.kind)
+        plan.method, plan.params = "constant", {"value": value}
+        observed = pd.to_numeric(values, errors="coerce") if plan.kind == "numeric" else None
+        outside = observed is not None and not (observed.min() <= value <= observed.max())
+        stands = (f"the new label '{value}'" if isinstance(value, str) else
+                  f"{value:g}" + (", outside every observed value" if outside else ""))
+        text = (f"structural blank: blank when {rule['when']} ({rule['support']} rows, "
+                f"{rule['confidence']:.0%} of them blank), so the value does not apply; "
+                f"filled with {stands}")
+        if plan.kind == "numeric":
+            # A number standing for "does not apply" must stay tellable from a measurement.
+            plan.indicator = True
+            text += "; the indicator column tells these rows apart"
+        if rule["unexplained"]:
+            text += (f". {rule['unexplained']} other blank(s) fall outside the rule: likely "
+                     "true missing values, filled with the same constant; change the method "
+                     "to model them")
+        plan.reason = text + (f" [experiment: {plan.reason}]" if plan.reason else "")
+    if notes:
+        plan.reason += ". " + "; ".join(notes)
+
+
+def _structural_value(rule: dict[str, Any], kind: str) -> float | str:
+    """What a structural blank stands for: the label 'absent', or 0 for numbers."""
+    if kind in ("binary", "categorical"):
+        return ABSENT_LABEL
+    return 0.0
+
+
+def _distribution_note(summary: dict[str, dict], chosen: str, metric_kind: str) -> str:
+    """A few words on how the chosen method keeps the column's spread and correlations."""
+    entry = summary[chosen]
+    if metric_kind != "numeric":
+        tv = entry.get("total_variation")
+        return "" if tv is None else f"; label frequencies shift by {tv:.2g} (total variation)"
+    parts = []
+    ratio = entry.get("variance_ratio")
+    if ratio is not None and math.isfinite(ratio):
+        parts.append(f"fills keep {ratio:.0%} of the hidden values' variance")
+    shift = entry.get("corr_shift")
+    if shift is not None and math.isfinite(shift):
+        parts.append(f"correlations move by {shift:.2g} on average")
+    return "; " + ", ".join(parts) if parts else ""
 
 
 def _public_params(method: str) -> dict[str, Any]:
@@ -275,6 +364,9 @@ def score_table(
         working = working.iloc[rows].reset_index(drop=True)
     scored = [n for n in targets
               if working[n].notna().sum() >= MIN_OBSERVED and working[n].nunique() >= 2]
+    if options.masks is None:
+        holes = bool(len(scored)) and bool(working[scored].isna().to_numpy().any())
+        options = replace(options, masks=DEFAULT_MASKS + (("pattern",) if holes else ()))
     result = None
     if scored:
         methods = {m: {} for m in (options.methods or get_method_names())}

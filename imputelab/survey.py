@@ -9,7 +9,9 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from imputelab.diagnostics import CAUTION
 from imputelab.errors import DataError, OptionError
+from imputelab.evidence import Evidence, gather_evidence
 from imputelab.io import Table
 from imputelab.kinds import (
     IMPUTABLE_KINDS,
@@ -52,6 +54,14 @@ class SurveyOptions:
         Columns missing more than this share are flagged for dropping.
     target : str, optional
         The column a later model will predict.
+    diagnostics : bool
+        Gather the evidence about what the blanks mean (:mod:`imputelab.evidence`): Little's
+        test, the pattern table, the predictability of every column's blanks, structural
+        rules. Off, the survey is only kinds, counts, tokens and codes.
+    n_jobs : int
+        Columns checked in parallel by the diagnostics.
+    seed : int
+        Seed of the diagnostics' classifiers.
     """
 
     kinds: dict[str, str] = field(default_factory=dict)
@@ -59,6 +69,9 @@ class SurveyOptions:
     date_formats: dict[str, str] = field(default_factory=dict)
     drop_threshold: float = DEFAULT_DROP_THRESHOLD
     target: str | None = None
+    diagnostics: bool = True
+    n_jobs: int = 1
+    seed: int = 0
 
     def validate(self, columns: Sequence[str]) -> None:
         """Check every named column exists and values are in range."""
@@ -84,9 +97,13 @@ class ColumnSurvey:
     suspected_codes: list[float]
     drop: bool
     notes: list[str] = field(default_factory=list)
+    evidence: dict[str, Any] = field(default_factory=dict)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready dict (the keys of ``survey --json``)."""
+        return {**self._basics(), **self.evidence}
+
+    def _basics(self) -> dict[str, Any]:
         return {
             "kind": self.spec.kind,
             "missing": self.missing,
@@ -114,6 +131,7 @@ class Survey:
     options: SurveyOptions
     columns: dict[str, ColumnSurvey]
     typed: pd.DataFrame
+    evidence: Evidence | None = None
 
     @property
     def rows(self) -> int:
@@ -139,6 +157,9 @@ class Survey:
         if self.options.target is not None:
             out["target"] = self.options.target
             out["target_missing_rows"] = int(self.typed[self.options.target].isna().sum())
+        if self.evidence is not None:
+            out.update(self.evidence.table_dict())
+            out["caution"] = CAUTION
         return out
 
 
@@ -220,7 +241,31 @@ def survey_table(table: Table, options: SurveyOptions | None = None) -> Survey:
         drop = fraction > options.drop_threshold and name != options.target
         columns[name] = ColumnSurvey(name, spec, missing, fraction, codes, drop, notes)
     typed_frame = pd.DataFrame(typed, index=frame.index)
-    return Survey(table=table, options=options, columns=columns, typed=typed_frame)
+    evidence = None
+    if options.diagnostics:
+        evidence = gather_evidence(typed_frame, {n: c.spec for n, c in columns.items()},
+                                   seed=options.seed, n_jobs=options.n_jobs)
+        for col in columns.values():
+            _add_evidence(col, evidence, n, options)
+    return Survey(table=table, options=options, columns=columns, typed=typed_frame,
+                  evidence=evidence)
+
+
+def _add_evidence(col: ColumnSurvey, evidence: Evidence, n: int, options: SurveyOptions) -> None:
+    """Attach a column's evidence; structural blanks do not count towards dropping it."""
+    col.evidence = evidence.column_dict(col.name)
+    rules = evidence.structural.get(col.name)
+    if rules:
+        rule = rules[0]
+        col.notes.append(f"blank when {rule.when} ({rule.support} rows, {rule.confidence:.0%} "
+                         f"of them): not applicable, not missing")
+        # Common practice, no source: the drop threshold applies to the values that are
+        # really missing, so a column blank only where it does not apply is kept.
+        col.drop = (rule.unexplained / n if n else 0.0) > options.drop_threshold and (
+            col.name != options.target)
+    hint = evidence.zero_hints.get(col.name)
+    if hint is not None:
+        col.notes.append(hint.text)
 
 
 def _absent_codes(raw: pd.Series, spec: ColumnSpec, decimal: str) -> list[Any]:

@@ -102,10 +102,20 @@ def check_filled_csv(source: Path, out: Path, plan: dict[str, Any]) -> dict[str,
     header_in, rows_in = read_cells(source)
     header_out, rows_out = read_cells(out)
     actions = {n: c["action"] for n, c in plan["columns"].items()}
-    assert header_out == [n for n in header_in if actions[n] != "drop"]
+    flagged = [n for n in header_in if plan["columns"][n].get("indicator")
+               and actions[n] == "impute"]
+    kept = [n for n in header_in if actions[n] != "drop"]
+    # Indicator columns come after every kept column, in table order.
+    assert header_out == kept + [f"{n}__was_missing" for n in flagged]
     assert len(rows_out) == len(rows_in)
+    for name in flagged:
+        j = header_out.index(f"{name}__was_missing")
+        i = header_in.index(name)
+        holes = holes_of(plan, name)
+        assert [r[j] for r in rows_out] == ["1" if r[i].strip() in holes else "0"
+                                            for r in rows_in], name
     filled: dict[str, int] = {}
-    for name in header_out:
+    for name in kept:
         i, j = header_in.index(name), header_out.index(name)
         holes = holes_of(plan, name)
         for line, (row_in, row_out) in enumerate(zip(rows_in, rows_out, strict=True), 2):
@@ -204,7 +214,7 @@ def test_score_writes_a_plan_with_every_column(trip_log_csv, tmp_path, fast_scor
     assert f"Plan written to {plan_path}" in result.stdout
     plan = load(plan_path)
     assert plan["format"] == "imputelab-plan"
-    assert plan["version"] == 1
+    assert plan["version"] == 2
     assert list(plan["columns"]) == list(DEMO_COLUMNS)
     assert plan["source"]["rows"] == 300
     # Reference: hashlib's SHA-256 of the input's bytes.
@@ -215,9 +225,14 @@ def test_score_writes_a_plan_with_every_column(trip_log_csv, tmp_path, fast_scor
     assert actions["customs_ref"] == "drop"
     for name, col in plan["columns"].items():
         assert col["reason"], name
-        if col["action"] == "impute":
+        if col["action"] == "impute" and name != "setpoint_c":
             assert col["method"] in ("mean", "median", "mode", "chained-linear"), name
             assert col["scores"], name
+    # The demo's planted structural blank: no setpoint applies to dry cargo.
+    setpoint = plan["columns"]["setpoint_c"]
+    assert setpoint["method"] == "constant" and setpoint["indicator"] is True
+    assert "blank when cargo_class == 'dry'" in setpoint["reason"]
+    assert setpoint["evidence"]["structural"][0]["when"] == "cargo_class == 'dry'"
 
 
 def test_score_same_seed_gives_byte_identical_plans(trip_log_csv, tmp_path, fast_score_args):
@@ -305,7 +320,7 @@ def test_score_methods_subset_is_respected(trip_log_csv, tmp_path, fast_score_ar
     assert plan["settings"]["methods"] == ["median", "mode"]
     for name, col in plan["columns"].items():
         assert set(col["scores"]) <= {"median", "mode"}, name
-        if col["action"] == "impute":
+        if col["action"] == "impute" and not col["evidence"]["structural"]:
             assert col["method"] in ("median", "mode"), name
 
 
@@ -340,7 +355,8 @@ def test_fill_parquet_keeps_types(trip_log_csv, trip_log_plan, tmp_path):
     table = pq.read_table(out)
     plan = load(trip_log_plan)
     header = read_cells(trip_log_csv)[0]
-    assert table.column_names == [n for n in header if n != "customs_ref"]
+    assert table.column_names == [n for n in header if n != "customs_ref"] + [
+        "setpoint_c__was_missing"]
     schema = table.schema
     assert pa.types.is_integer(schema.field("payload_kg").type)
     assert pa.types.is_timestamp(schema.field("departed_at").type)

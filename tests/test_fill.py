@@ -570,3 +570,33 @@ def test_check_plan_refuses_other_columns_unless_forced(tmp_path, scored_csv):
         check_plan(plan, other)
     warnings_ = check_plan(plan, other, force=True)
     assert any("not in the plan: rating, payload_kg" in w for w in warnings_)
+
+
+def test_indicator_columns_follow_the_table_and_flag_exactly_the_holes(scored_csv):
+    table, plan = scored_csv
+    plan = Plan.from_dict(plan.to_dict())
+    for name in ("temp_c", "depot"):
+        plan.columns[name].indicator = True
+    holes = holes_of(table, plan)
+    for text_output in (True, False):
+        out, _ = fill_table(table, plan, text_output=text_output)
+        assert list(out.columns) == [*table.frame.columns, "temp_c__was_missing",
+                                     "depot__was_missing"]
+        for name in ("temp_c", "depot"):
+            flag = out[f"{name}__was_missing"]
+            expected = holes[name].astype(int).tolist()
+            assert flag.astype(int).tolist() == expected
+            assert 0 < sum(expected) < len(expected)
+        if not text_output:
+            assert out["temp_c__was_missing"].dtype == np.int8
+
+
+def test_an_indicator_name_already_in_the_table_is_a_plan_error(scored_csv):
+    table, plan = scored_csv
+    plan = Plan.from_dict(plan.to_dict())
+    plan.columns["stops"].indicator = True
+    frame = table.frame.rename(columns={"load_kg": "stops__was_missing"})
+    plan.columns["stops__was_missing"] = plan.columns.pop("load_kg")
+    clash = Table(frame, table.path, table.format)
+    with pytest.raises(PlanError, match="already has a column 'stops__was_missing'"):
+        fill_table(clash, plan, force=True)

@@ -172,10 +172,10 @@ def test_the_json_layout_is_the_documented_one():
     data = json.loads(make_plan().to_json())
     assert list(data) == ["format", "version", "source", "settings", "columns"]
     assert data["format"] == PLAN_FORMAT == "imputelab-plan"
-    assert data["version"] == PLAN_VERSION == 1
+    assert data["version"] == PLAN_VERSION == 2
     assert list(data["columns"]["payload_kg"]) == [
         "kind", "missing_fraction", "action", "method", "params", "reason", "scores",
-        "skipped", "cleaning",
+        "skipped", "cleaning", "indicator", "evidence",
     ]
 
 
@@ -250,12 +250,12 @@ def plan_data() -> dict:
     return json.loads(make_plan().to_json())
 
 
-@pytest.mark.parametrize("version", [2, 0, "1", None])
+@pytest.mark.parametrize("version", [3, 0, "1", None])
 def test_an_unknown_version_is_refused_and_named(version):
     data = plan_data()
     data["version"] = version
     with pytest.raises(PlanError, match=re.escape(f"is plan version {version!r}; this "
-                                                  "imputelab reads version 1")):
+                                                  "imputelab reads versions 1 and 2")):
         Plan.from_dict(data)
 
 
@@ -395,3 +395,21 @@ def test_a_failed_first_save_leaves_nothing(tmp_path, monkeypatch):
     with pytest.raises(RuntimeError, match="cannot serialise"):
         make_plan().save(tmp_path / "plan.json")
     assert listing(tmp_path) == []
+
+
+def test_a_version_1_plan_still_loads_without_indicator_or_evidence():
+    data = plan_data()
+    data["version"] = 1
+    for col in data["columns"].values():
+        del col["indicator"], col["evidence"]
+    plan = Plan.from_dict(data)
+    assert all(col.indicator is False and col.evidence == {} for col in plan.columns.values())
+
+
+@pytest.mark.parametrize("value", ["yes", 1, None])
+def test_indicator_must_be_a_json_boolean(value):
+    data = plan_data()
+    name = next(iter(data["columns"]))
+    data["columns"][name]["indicator"] = value
+    with pytest.raises(PlanError, match=f"column '{name}': \"indicator\" must be true or false"):
+        Plan.from_dict(data)

@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+import os
 from pathlib import Path
 from typing import Annotated
 
 import typer
 
 from imputelab.cli._common import parse_code, parse_pairs
+from imputelab.errors import OptionError
 from imputelab.survey import DEFAULT_DROP_THRESHOLD, SurveyOptions
 
 FileArg = Annotated[Path, typer.Argument(help="A .csv or .parquet file.", show_default=False)]
@@ -24,6 +26,11 @@ DropOpt = Annotated[float, typer.Option(
 TargetOpt = Annotated[str | None, typer.Option(
     "--target", metavar="COLUMN",
     help="The column a later model predicts: never imputed nor used to fill the others.")]
+ChecksOpt = Annotated[bool, typer.Option(
+    "--checks/--no-checks",
+    help="Test what the blanks mean: Little's test, patterns, predictability, structural "
+         "rules.")]
+JobsOpt = Annotated[int, typer.Option("--jobs", "-j", help="Parallel tasks (0: all cores).")]
 JsonOpt = Annotated[bool, typer.Option("--json", help="Print machine-readable JSON on stdout.")]
 QuietOpt = Annotated[bool, typer.Option("--quiet", "-q", help="Print nothing but errors.")]
 
@@ -34,8 +41,14 @@ def survey_options(
     date_format: list[str] | None,
     drop_threshold: float = DEFAULT_DROP_THRESHOLD,
     target: str | None = None,
+    *,
+    checks: bool = True,
+    jobs: int = 1,
+    seed: int = 0,
 ) -> SurveyOptions:
     """Build the survey settings from the command-line options."""
+    if jobs < 0:
+        raise OptionError(f"--jobs must be 0 (all cores) or more, got {jobs}")
     codes: dict[str, list] = {}
     for name, value in parse_pairs(missing_code, "--missing-code"):
         codes.setdefault(name, []).append(parse_code(value))
@@ -45,4 +58,7 @@ def survey_options(
         date_formats=dict(parse_pairs(date_format, "--date-format")),
         drop_threshold=drop_threshold,
         target=target,
+        diagnostics=checks,
+        n_jobs=jobs or (os.cpu_count() or 1),
+        seed=seed,
     )

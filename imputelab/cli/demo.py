@@ -13,7 +13,7 @@ import typer
 from imputelab.cli._common import handle_errors, out, print_json, progress_bar
 from imputelab.cli.fill import report_rich_table
 from imputelab.cli.score import plan_rich_table, scores_rich_table
-from imputelab.cli.survey import survey_rich_table
+from imputelab.cli.survey import evidence_lines, survey_rich_table
 from imputelab.demo import write_trip_log
 from imputelab.fill import fill_table
 from imputelab.io import read_table, write_table
@@ -47,14 +47,18 @@ def demo(
         out.rule("1. survey: what is in the file")
     # The survey flags driver_rating's 99 as a suspected code; the demo confirms it, as a user
     # who knows that 99 means "no rating given" would with --missing-code driver_rating=99.
-    options = ScoreOptions(survey=SurveyOptions(missing_codes=DEMO_CODES, target=DEMO_TARGET),
-                           seed=seed, n_jobs=jobs or (os.cpu_count() or 1))
+    n_jobs = jobs or (os.cpu_count() or 1)
+    options = ScoreOptions(survey=SurveyOptions(missing_codes=DEMO_CODES, target=DEMO_TARGET,
+                                                n_jobs=n_jobs, seed=seed),
+                           seed=seed, n_jobs=n_jobs)
     with progress_bar("scoring methods", quiet=not chatty) as update:
         plan, survey, _ = score_table(table, options, progress=update)
     survey_path = out_dir / "survey.json"
     survey_path.write_text(jsonlib.dumps(survey.to_dict(), indent=2) + "\n", encoding="utf-8")
     if chatty:
         out.print(survey_rich_table(survey))
+        for line in evidence_lines(survey):
+            out.print(line, highlight=False)
         out.rule("2. score: every method against hidden truth")
         out.print(scores_rich_table(plan))
         out.print(plan_rich_table(plan))

@@ -18,6 +18,7 @@ from imputelab.cli._common import (
     progress_bar,
 )
 from imputelab.cli._options import (
+    ChecksOpt,
     CodeOpt,
     DateOpt,
     DropOpt,
@@ -40,6 +41,10 @@ SHORT = {"constant": "const", "chained-linear": "linear", "chained-forest": "for
 
 
 def _metric_of(plan: Plan, kind: str) -> str:
+    """The score the plan chose by: the primary metric, or the --choose-by score."""
+    choose_by = plan.settings.get("choose_by", "accuracy")
+    if choose_by != "accuracy":
+        return choose_by
     family = "numeric" if kind in ("numeric", "datetime") else "categorical"
     return plan.settings.get("metrics", PRIMARY).get(family, PRIMARY[family])
 
@@ -59,8 +64,8 @@ def plan_rich_table(plan: Plan) -> RichTable:
 def scores_rich_table(plan: Plan) -> RichTable:
     """Each method's mean primary metric per scored column (* = chosen)."""
     methods = list(plan.settings.get("methods", []))
-    table = RichTable(title="Scores: mean primary metric over masks and repeats (lower is "
-                            "better; * = chosen)", title_justify="left")
+    table = RichTable(title="Scores: mean over masks and repeats of the score the choice "
+                            "ranks by (* = chosen)", title_justify="left")
     table.add_column("column", no_wrap=True)
     table.add_column("metric")
     for method in methods:
@@ -94,8 +99,9 @@ def parse_metrics(values: list[str] | None) -> dict[str, str]:
 def score(
     file: FileArg,
     out_path: Annotated[Path, typer.Option("--out", "-o", help="Where to write plan.json.")],
-    masks: Annotated[str, typer.Option(help="Comma-separated masks: mcar, mar, mnar.")]
-    = "mcar,mar,mnar",
+    masks: Annotated[str | None, typer.Option(
+        help="Comma-separated masks: mcar, mar, mnar, pattern (default: mcar, mar, mnar, and "
+             "pattern when the file has holes).")] = None,
     rate: Annotated[float, typer.Option(help="Share of each column's observed cells hidden.")]
     = 0.2,
     repeats: Annotated[int, typer.Option(help="Fresh masks per kind of mask.")] = 3,
@@ -105,6 +111,9 @@ def score(
     metric: Annotated[list[str] | None, typer.Option(
         "--metric", help="Primary metric of its kind (repeatable), e.g. mae or macro_f1.")]
     = None,
+    choose_by: Annotated[str, typer.Option(
+        "--choose-by", help="Rank methods by accuracy (the primary metric), distribution "
+        "(spread and correlations kept) or balanced (both).")] = "accuracy",
     sample: Annotated[int, typer.Option(
         help="Run the experiment on at most this many rows (0: all rows).")] = 10_000,
     jobs: Annotated[int, typer.Option("--jobs", "-j", help="Parallel tasks (0: all cores).")]
@@ -116,6 +125,7 @@ def score(
     date_format: DateOpt = None,
     drop_threshold: DropOpt = DEFAULT_DROP_THRESHOLD,
     target: TargetOpt = None,
+    checks: ChecksOpt = True,
     json: JsonOpt = False,
     quiet: QuietOpt = False,
 ) -> None:
@@ -126,8 +136,9 @@ def score(
     if jobs < 0:
         raise OptionError(f"--jobs must be 0 (all cores) or more, got {jobs}")
     options = ScoreOptions(
-        survey=survey_options(kind, missing_code, date_format, drop_threshold, target),
-        masks=parse_list(masks, "--masks"),
+        survey=survey_options(kind, missing_code, date_format, drop_threshold, target,
+                              checks=checks, jobs=jobs, seed=seed),
+        masks=parse_list(masks, "--masks") if masks is not None else None,
         rate=rate,
         repeats=repeats,
         seed=seed,
@@ -136,6 +147,7 @@ def score(
         sample=sample or None,
         use_target=use_target,
         n_jobs=jobs or (os.cpu_count() or 1),
+        choose_by=choose_by,
     )
     table = read_table(file)
     with progress_bar("scoring methods", quiet=quiet) as update:

@@ -6,16 +6,19 @@ from rich.table import Table as RichTable
 
 from imputelab.cli._common import handle_errors, out, print_json
 from imputelab.cli._options import (
+    ChecksOpt,
     CodeOpt,
     DateOpt,
     DropOpt,
     FileArg,
+    JobsOpt,
     JsonOpt,
     KindOpt,
     QuietOpt,
     TargetOpt,
     survey_options,
 )
+from imputelab.diagnostics import CAUTION
 from imputelab.io import read_table
 from imputelab.survey import DEFAULT_DROP_THRESHOLD, Survey, survey_table
 
@@ -31,13 +34,56 @@ def survey_rich_table(survey: Survey) -> RichTable:
     table.add_column("tokens read as missing", overflow="fold", ratio=1)
     table.add_column("codes?")
     table.add_column("drop")
+    table.add_column("blanks predictable? (AUC)", overflow="fold", ratio=1)
     table.add_column("notes", overflow="fold", ratio=2)
     for name, col in survey.columns.items():
         tokens = ", ".join(f"'{t}' x{c}" for t, c in col.spec.tokens.items())
         codes = ", ".join(f"{c:g}" for c in col.suspected_codes)
         table.add_row(name, col.spec.kind, str(col.missing), f"{col.missing_fraction:.1%}",
-                      tokens, codes, "DROP" if col.drop else "", "; ".join(col.notes))
+                      tokens, codes, "DROP" if col.drop else "",
+                      _predictability(col.evidence.get("missingness")), "; ".join(col.notes))
     return table
+
+
+SHORT_VERDICT = {
+    "depends on observed columns (MAR evidence)": "yes",
+    "no detectable dependence on observed columns": "no",
+    "cannot tell (too few missing)": "too few to tell",
+}
+
+
+def _predictability(check: dict | None) -> str:
+    if not check:
+        return ""
+    word = SHORT_VERDICT.get(check["verdict"], check["verdict"])
+    if check.get("auc") is None:
+        return word
+    drivers = f": {', '.join(check['drivers'])}" if check["drivers"] else ""
+    return f"{word} ({check['auc']:.2f}){drivers}"
+
+
+def evidence_lines(survey: Survey, shown: int = 6) -> list[str]:
+    """Little's test, the commonest patterns and the co-missing pairs, as text lines."""
+    if survey.evidence is None:
+        return []
+    ev = survey.evidence
+    test = ev.mcar_test
+    if test.testable:
+        lines = [f"Little's MCAR test on {len(test.columns)} numeric columns: d² = "
+                 f"{test.statistic:.1f}, df = {test.df}, p = {test.p_value:.3g}, "
+                 f"{test.patterns} patterns. {test.note}"]
+    else:
+        lines = [f"Little's MCAR test: not testable. {test.note}"]
+    patterns = ev.patterns
+    lines.append(f"Patterns of blanks: {patterns.n_patterns} distinct; complete rows "
+                 f"{patterns.complete_rows} of {patterns.n_rows}. Most common:")
+    for names, count in patterns.patterns[:shown]:
+        lines.append(f"  {count:>7}  {', '.join(names) if names else '(complete)'}")
+    if ev.co_missing:
+        pairs = ", ".join(f"{p['a']} & {p['b']} (phi {p['phi']:.2f})" for p in ev.co_missing)
+        lines.append(f"Often blank together: {pairs}")
+    lines.append(f"Caution: {CAUTION}")
+    return lines
 
 
 @handle_errors
@@ -48,16 +94,21 @@ def survey(
     date_format: DateOpt = None,
     drop_threshold: DropOpt = DEFAULT_DROP_THRESHOLD,
     target: TargetOpt = None,
+    checks: ChecksOpt = True,
+    jobs: JobsOpt = 0,
     json: JsonOpt = False,
     quiet: QuietOpt = False,
 ) -> None:
-    """Survey a table: each column's kind, missing cells, disguised blanks and codes."""
-    options = survey_options(kind, missing_code, date_format, drop_threshold, target)
+    """Survey a table: kinds, missing cells, disguised blanks, codes, what the blanks mean."""
+    options = survey_options(kind, missing_code, date_format, drop_threshold, target,
+                             checks=checks, jobs=jobs)
     result = survey_table(read_table(file), options)
     if json:
         print_json(result.to_dict())
     elif not quiet:
         out.print(survey_rich_table(result))
+        for line in evidence_lines(result):
+            out.print(line, highlight=False)
         flagged = [n for n, c in result.columns.items() if c.drop]
         if flagged:
             out.print(f"Flagged for dropping (over {drop_threshold:.0%} missing): "

@@ -13,6 +13,7 @@ from imputelab.masks.base import Mask, hidden_count
 from imputelab.masks.mar import MARMask
 from imputelab.masks.mcar import MCARMask
 from imputelab.masks.mnar import MNARMask
+from imputelab.masks.pattern import PatternMask
 
 __all__ = [
     "MASKS",
@@ -20,6 +21,7 @@ __all__ = [
     "MCARMask",
     "MNARMask",
     "Mask",
+    "PatternMask",
     "get_mask",
     "get_mask_names",
     "hidden_count",
@@ -29,6 +31,7 @@ MASKS: dict[str, type[Mask]] = {
     "mcar": MCARMask,
     "mar": MARMask,
     "mnar": MNARMask,
+    "pattern": PatternMask,
 }
 
 

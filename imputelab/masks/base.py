@@ -244,7 +244,6 @@ class Mask(abc.ABC):
                 info[col] = drivers
         return hidden
 
-    @abc.abstractmethod
     def _pick(
         self,
         X: pd.DataFrame,
@@ -257,8 +256,10 @@ class Mask(abc.ABC):
         """Choose ``k`` rows among ``observed`` (row positions) to hide in ``column``.
 
         Returns the chosen row positions (a subset of ``observed``) and the names of
-        the columns whose values drove the choice.
+        the columns whose values drove the choice. A mask that chooses whole rows at once
+        (``pattern``) overrides :meth:`sample` instead.
         """
+        raise NotImplementedError(f"{type(self).__name__} must implement _pick or sample")
 
     def _check_params(self) -> None:
         """Raise OptionError if a stored parameter is out of range (none by default)."""

@@ -1,0 +1,177 @@
+"""What the blanks mean: the survey's evidence about every column's missing cells.
+
+One pass over the typed table gathers what the diagnostics in :mod:`imputelab.diagnostics`
+can say:
+
+* Little's MCAR test on the numeric columns;
+* the pattern table and the pairs of columns most often blank together;
+* per column, whether the other columns predict its blanks (cross-validated AUC);
+* per column, rules that say a blank is *structural* (``Pool.QC`` is blank exactly when
+  ``Pool.Area == 0``) and hints that a blank stands for zero.
+
+The survey reports it, the plan carries it into every column's reason, and a structural
+column is filled with the constant its rule stands for rather than with a model.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from joblib import Parallel, delayed
+from threadpoolctl import threadpool_limits
+
+from imputelab.diagnostics import (
+    LittleTest,
+    MissingnessCheck,
+    PatternTable,
+    StructuralRule,
+    ZeroHint,
+    blank_means_zero,
+    co_missingness,
+    find_structural_rules,
+    little_mcar_test,
+    missing_patterns,
+    missingness_predictability,
+    top_co_missing,
+)
+from imputelab.encoding import Encoding, derived_from, with_derived
+from imputelab.kinds import IMPUTABLE_KINDS, ColumnSpec
+
+__all__ = ["MAX_PATTERNS_SHOWN", "Evidence", "gather_evidence"]
+
+#: Patterns listed in the survey (the count of the rest is reported).
+MAX_PATTERNS_SHOWN = 15
+
+
+@dataclass
+class Evidence:
+    """Everything the diagnostics found about a table's blanks.
+
+    Attributes
+    ----------
+    mcar_test : LittleTest
+        Little's test on the numeric columns.
+    patterns : PatternTable
+        Row patterns of blank cells over the columns that may be filled.
+    co_missing : list of dict
+        Pairs of columns most often blank together (phi).
+    missingness : dict
+        Per column with blanks: can the other columns predict them.
+    structural : dict
+        Per column: rules saying when a blank is not a missing value, best first.
+    zero_hints : dict
+        Per numeric column whose blanks may be unwritten zeros.
+    """
+
+    mcar_test: LittleTest
+    patterns: PatternTable
+    co_missing: list[dict[str, Any]] = field(default_factory=list)
+    missingness: dict[str, MissingnessCheck] = field(default_factory=dict)
+    structural: dict[str, list[StructuralRule]] = field(default_factory=dict)
+    zero_hints: dict[str, ZeroHint] = field(default_factory=dict)
+
+    def unexplained(self, name: str, missing: int) -> int:
+        """Blanks of ``name`` that no structural rule explains (its true missing values)."""
+        rules = self.structural.get(name)
+        return rules[0].unexplained if rules else missing
+
+    def column_dict(self, name: str) -> dict[str, Any]:
+        """The per-column part of ``survey --json``."""
+        check = self.missingness.get(name)
+        hint = self.zero_hints.get(name)
+        return {
+            "missingness": None if check is None else check.to_dict(),
+            "structural": [rule.to_dict() for rule in self.structural.get(name, [])],
+            "hints": [] if hint is None else [hint.text],
+        }
+
+    def table_dict(self) -> dict[str, Any]:
+        """The table-wide part of ``survey --json``."""
+        return {
+            "mcar_test": self.mcar_test.to_dict(),
+            "patterns": self.patterns.to_dict(),
+            "co_missing": list(self.co_missing),
+        }
+
+
+def _predictability_task(features: pd.DataFrame, missing: np.ndarray,
+                         seed: int) -> MissingnessCheck:
+    with threadpool_limits(limits=1):
+        return missingness_predictability(features, missing, random_state=seed)
+
+
+def gather_evidence(
+    typed: pd.DataFrame,
+    specs: Mapping[str, ColumnSpec],
+    *,
+    seed: int = 0,
+    n_jobs: int = 1,
+) -> Evidence:
+    """Run every diagnostic on a typed table.
+
+    Parameters
+    ----------
+    typed : DataFrame
+        The survey's cleaned table.
+    specs : mapping
+        Every column's cleaning spec (its kind above all).
+    seed : int, default 0
+        Seed of the cross-validated classifiers.
+    n_jobs : int, default 1
+        Columns checked in parallel (joblib).
+
+    Returns
+    -------
+    Evidence
+    """
+    kinds = {name: spec.kind for name, spec in specs.items()}
+    usable = [n for n in typed.columns if kinds[n] in IMPUTABLE_KINDS]
+    numeric = [n for n in usable if kinds[n] == "numeric"]
+    blanks = typed[usable].isna()
+
+    mcar = little_mcar_test(typed[numeric].astype("float64"))
+    patterns = missing_patterns(blanks, max_patterns=MAX_PATTERNS_SHOWN)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        co_missing = top_co_missing(co_missingness(blanks)) if usable else []
+    structural = find_structural_rules(typed, kinds)
+    zero_hints = blank_means_zero(typed, kinds)
+
+    missingness: dict[str, MissingnessCheck] = {}
+    holed = [n for n in usable if blanks[n].any()]
+    if holed and len(usable) > 1:
+        encoding = Encoding.fit(typed, {n: kinds[n] for n in usable})
+        features = with_derived(encoding.encode(typed), encoding.kinds)
+        jobs = []
+        for name in holed:
+            drop = [name, *derived_from(name, list(features.columns))]
+            jobs.append(delayed(_predictability_task)(
+                features.drop(columns=drop), blanks[name].to_numpy(), seed))
+        checks = Parallel(n_jobs=n_jobs)(jobs) if n_jobs != 1 else [
+            job[0](*job[1], **job[2]) for job in jobs]
+        missingness = {name: _named(check, usable) for name, check in zip(holed, checks,
+                                                                          strict=True)}
+    return Evidence(mcar_test=mcar, patterns=patterns, co_missing=co_missing,
+                    missingness=missingness, structural=structural, zero_hints=zero_hints)
+
+
+def _named(check: MissingnessCheck, columns: list[str]) -> MissingnessCheck:
+    """Drivers named after the table's columns (``departed_at (hour)`` for a derived one)."""
+    if not check.drivers:
+        return check
+    shown = []
+    for driver in check.drivers:
+        base, sep, part = driver.partition("__")
+        if sep and base in columns and part and "__" not in part:
+            shown.append(f"{base} ({part.replace('_', ' ')})")
+        elif sep and "__minus__" in driver:
+            later, _, earlier = driver.partition("__minus__")
+            shown.append(f"{later} - {earlier} (hours)")
+        else:
+            shown.append(driver)
+    return MissingnessCheck(auc=check.auc, auc_low=check.auc_low, auc_high=check.auc_high,
+                            drivers=shown, verdict=check.verdict, n_missing=check.n_missing,
+                            n_rows=check.n_rows, caution=check.caution)
