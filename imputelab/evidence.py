@@ -110,6 +110,7 @@ def gather_evidence(
     *,
     seed: int = 0,
     n_jobs: int = 1,
+    target: str | None = None,
 ) -> Evidence:
     """Run every diagnostic on a typed table.
 
@@ -123,6 +124,10 @@ def gather_evidence(
         Seed of the cross-validated classifiers.
     n_jobs : int, default 1
         Columns checked in parallel (joblib).
+    target : str, optional
+        The column a later model predicts. It may show that blanks depend on the outcome
+        (a predictability driver), but never makes a blank structural: a rule on the target
+        would fill a feature by its value.
 
     Returns
     -------
@@ -137,7 +142,8 @@ def gather_evidence(
     patterns = missing_patterns(blanks, max_patterns=MAX_PATTERNS_SHOWN)
     with np.errstate(invalid="ignore", divide="ignore"):
         co_missing = top_co_missing(co_missingness(blanks)) if usable else []
-    structural = find_structural_rules(typed, kinds)
+    rest = [n for n in typed.columns if n != target]
+    structural = find_structural_rules(typed[rest], {n: kinds[n] for n in rest})
     zero_hints = blank_means_zero(typed, kinds)
 
     missingness: dict[str, MissingnessCheck] = {}

@@ -193,6 +193,8 @@ def fill_frame(
                                                 len(encoding.categories.get(n, [])) or None)
                    for n in targets}
         joint = [n for n in targets if reasons[n] is None]
+        if not method.uses_other_columns:  # a statistic: nothing to gain from more columns
+            joint = [n for n in joint if n in columns]
         bad = [n for n in columns if n not in joint]
         if bad:
             raise PlanError(f"plan: column '{bad[0]}': {reasons[bad[0]]}; "

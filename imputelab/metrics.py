@@ -523,8 +523,11 @@ def correlation_shift(
     0.0513...
     """
     t, f = _numeric_pair(true, filled)
-    ot = np.asarray(others_true, dtype=float).reshape(len(t), -1)
-    of = np.asarray(others_filled, dtype=float).reshape(len(t), -1)
+    ot, of = (np.asarray(a, dtype=float) for a in (others_true, others_filled))
+    ot, of = (a[:, None] if a.ndim == 1 else a for a in (ot, of))
+    if ot.ndim != 2 or ot.shape != of.shape or ot.shape[0] != len(t):
+        raise DataError(f"the other columns must be arrays of shape ({len(t)}, q), the same "
+                        f"before and after filling; got {ot.shape} and {of.shape}")
     shifts = []
     for j in range(ot.shape[1]):
         rows = np.isfinite(t) & np.isfinite(ot[:, j]) & np.isfinite(f) & np.isfinite(of[:, j])

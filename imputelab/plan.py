@@ -5,6 +5,7 @@ A plan is plain data written as versioned JSON that a person can read and edit::
     {"format": "imputelab-plan", "version": 1,
      "source": {"file", "rows", "columns", "fingerprint", ...},
      "settings": {...},
+     "downstream": {...},  # with a target: every fill scored by models of the target
      "columns": {NAME: {"kind", "missing_fraction", "action", "method", "params",
                         "reason", "scores": {METHOD: {METRIC: VALUE}}, "cleaning": {...},
                         "indicator": false, "evidence": {...}}}}
@@ -109,6 +110,7 @@ class Plan:
     columns: dict[str, ColumnPlan]
     format: str = PLAN_FORMAT
     version: int = PLAN_VERSION
+    downstream: dict[str, Any] = field(default_factory=dict)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready dict, floats rounded to six significant digits."""
@@ -117,6 +119,7 @@ class Plan:
             "version": self.version,
             "source": self.source,
             "settings": self.settings,
+            "downstream": self.downstream,
             "columns": {name: asdict(col) for name, col in self.columns.items()},
         })
 
@@ -142,7 +145,7 @@ class Plan:
                 f"{origin} is plan version {data.get('version')!r}; this imputelab reads "
                 f"versions {readable}: run score again to make a new plan"
             )
-        for section in ("source", "settings", "columns"):
+        for section in ("source", "settings", "downstream", "columns"):
             if not isinstance(data.get(section, {}), Mapping):
                 raise PlanError(f"{origin}: \"{section}\" must be a JSON object")
         columns = {}
@@ -167,7 +170,7 @@ class Plan:
                 raise PlanError(f"{origin}: column '{name}' is to be imputed but has no method")
             columns[name] = col
         return cls(source=dict(data.get("source") or {}), settings=dict(data.get("settings") or {}),
-                   columns=columns)
+                   columns=columns, downstream=dict(data.get("downstream") or {}))
 
     @classmethod
     def load(cls, path: str | Path, *, option: str = "--plan") -> Plan:

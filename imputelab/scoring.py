@@ -12,6 +12,7 @@ import numpy as np
 import pandas as pd
 
 from imputelab.diagnostics import ABSENT_LABEL
+from imputelab.encoding import Encoding
 from imputelab.errors import OptionError
 from imputelab.experiment import ExperimentResult, derive_seed, run_experiment
 from imputelab.io import Table
@@ -21,6 +22,7 @@ from imputelab.metrics import PRIMARY, get_metric
 from imputelab.plan import ColumnPlan, Plan, choose_method
 from imputelab.prepare import default_action, working_setup
 from imputelab.survey import ColumnSurvey, Survey, SurveyOptions, survey_table
+from imputelab.target_experiment import run_target_experiment
 
 __all__ = ["CHOOSE_BY", "DEFAULT_MASKS", "ScoreOptions", "plan_from_experiment", "score_table"]
 
@@ -71,6 +73,11 @@ class ScoreOptions:
         What the one-standard-error rule ranks by: the primary metric; ``distribution``
         (wasserstein + corr_shift for numbers, total variation for labels); or
         ``balanced``, the mean of nrmse (pfc for labels) and ``distribution``.
+    downstream : bool
+        With a target, also score every fill by cross-validated models of the target
+        (:mod:`imputelab.target_experiment`); the target never fills a feature there.
+    downstream_folds : int
+        Folds of that experiment.
     """
 
     survey: SurveyOptions = field(default_factory=SurveyOptions)
@@ -84,6 +91,8 @@ class ScoreOptions:
     use_target: bool = False
     n_jobs: int = 1
     choose_by: str = "accuracy"
+    downstream: bool = True
+    downstream_folds: int = 5
 
     def validate(self) -> None:
         """Check ranges and names; raise :class:`OptionError`."""
@@ -108,6 +117,8 @@ class ScoreOptions:
                     f"{', '.join(get_method_names())}")
         if self.methods is not None and not self.methods:
             raise OptionError("--methods: give at least one method")
+        if self.downstream_folds < 2:
+            raise OptionError(f"--target-folds must be at least 2, got {self.downstream_folds}")
         if self.choose_by not in CHOOSE_BY:
             raise OptionError(f"--choose-by must be one of {', '.join(CHOOSE_BY)}, "
                               f"got '{self.choose_by}'")
@@ -377,4 +388,34 @@ def score_table(
         )
     plan = plan_from_experiment(survey, result, options, actions=actions, scored=scored,
                                 sample_rows=len(working))
+    if target is not None and options.downstream and targets:
+        _downstream(plan, survey, encoding, targets, options, progress)
     return plan, survey, result
+
+
+def _downstream(plan: Plan, survey: Survey, encoding: Encoding, targets: list[str],
+                options: ScoreOptions, progress: Callable[[int, int], None] | None) -> None:
+    """Score every fill by a model of the target; recommend indicators where they help."""
+    target = options.survey.target
+    kind = survey.columns[target].spec.kind
+    if kind not in ("numeric", "binary", "categorical"):
+        plan.downstream = {"skipped": f"the target '{target}' is a {kind} column; the model "
+                                      "experiment needs a numeric or label target"}
+        return
+    features = encoding.encode(survey.typed).drop(columns=[target], errors="ignore")
+    methods = list(options.methods or get_method_names())
+    result = run_target_experiment(
+        features, {n: encoding.kinds[n] for n in features.columns}, targets,
+        survey.typed[target], kind, methods=methods, n_splits=options.downstream_folds,
+        seed=options.seed, n_jobs=options.n_jobs, dtypes=dict(survey.typed.dtypes),
+        progress=progress,
+    )
+    plan.downstream = result.to_dict()
+    for name, entry in result.indicators.items():
+        col = plan.columns.get(name)
+        if col is None or col.action != "impute" or not entry.get("recommend"):
+            continue
+        col.indicator = True
+        col.reason += (f". A missing-indicator column helps the model of '{target}' "
+                       f"(permutation importance {entry['importance']:.3g} ± "
+                       f"{entry['se']:.2g} over the folds): fill adds {name}__was_missing")

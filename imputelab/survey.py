@@ -244,7 +244,8 @@ def survey_table(table: Table, options: SurveyOptions | None = None) -> Survey:
     evidence = None
     if options.diagnostics:
         evidence = gather_evidence(typed_frame, {n: c.spec for n, c in columns.items()},
-                                   seed=options.seed, n_jobs=options.n_jobs)
+                                   seed=options.seed, n_jobs=options.n_jobs,
+                                   target=options.target)
         for col in columns.values():
             _add_evidence(col, evidence, n, options)
     return Survey(table=table, options=options, columns=columns, typed=typed_frame,

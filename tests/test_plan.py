@@ -170,7 +170,7 @@ def test_load_reads_what_save_wrote(tmp_path):
 
 def test_the_json_layout_is_the_documented_one():
     data = json.loads(make_plan().to_json())
-    assert list(data) == ["format", "version", "source", "settings", "columns"]
+    assert list(data) == ["format", "version", "source", "settings", "downstream", "columns"]
     assert data["format"] == PLAN_FORMAT == "imputelab-plan"
     assert data["version"] == PLAN_VERSION == 2
     assert list(data["columns"]["payload_kg"]) == [

@@ -12,7 +12,12 @@ import typer
 
 from imputelab.cli._common import handle_errors, out, print_json, progress_bar
 from imputelab.cli.fill import report_rich_table
-from imputelab.cli.score import plan_rich_table, scores_rich_table
+from imputelab.cli.score import (
+    downstream_lines,
+    downstream_rich_table,
+    plan_rich_table,
+    scores_rich_table,
+)
 from imputelab.cli.survey import evidence_lines, survey_rich_table
 from imputelab.demo import write_trip_log
 from imputelab.fill import fill_table
@@ -62,6 +67,11 @@ def demo(
         out.rule("2. score: every method against hidden truth")
         out.print(scores_rich_table(plan))
         out.print(plan_rich_table(plan))
+        models = downstream_rich_table(plan)
+        if models is not None:
+            out.print(models)
+        for line in downstream_lines(plan):
+            out.print(line, highlight=False)
     plan_path = plan.save(out_dir / "plan.json")
     frame, report = fill_table(table, plan)
     filled_path = write_table(frame, out_dir / "trips_filled.csv")

@@ -83,6 +83,56 @@ def scores_rich_table(plan: Plan) -> RichTable:
     return table
 
 
+def downstream_rich_table(plan: Plan) -> RichTable | None:
+    """Every fill scored by cross-validated models of the target (mean ± SE over folds)."""
+    down = plan.downstream
+    if not down.get("candidates"):
+        return None
+    target = plan.settings.get("target")
+    table = RichTable(title=f"Models of '{target}' after each fill: {down['metric']} "
+                            f"(higher is better), mean ± SE over {down['n_splits']} folds; "
+                            "* = best", title_justify="left")
+    table.add_column("fill")
+    models = ("lightgbm", "linear")
+    for model in models:
+        table.add_column(model, justify="right")
+    for name, entry in down["candidates"].items():
+        cells = []
+        for model in models:
+            score = entry.get(model, {})
+            if score.get("mean") is None:
+                cells.append("n/a")
+                continue
+            star = "*" if down["best"].get(model) == name else ""
+            cells.append(f"{score['mean']:.4f} ± {score['se']:.4f}{star}")
+        table.add_row(name, *cells)
+    return table
+
+
+def downstream_lines(plan: Plan) -> list[str]:
+    """Plain sentences on what the model experiment found."""
+    down = plan.downstream
+    if "skipped" in down and isinstance(down["skipped"], str):
+        return [f"Model experiment skipped: {down['skipped']}."]
+    if not down.get("candidates"):
+        return []
+    target = plan.settings.get("target")
+    lines = [f"The target '{target}' was used only inside this experiment, to score the "
+             f"models; it never fills a feature ({down['rows_used']} rows with a known "
+             f"target; {down['rows_missing_target']} without one were left out)."]
+    if down["no_fill_best"]:
+        lines.append("Not filling at all is best for LightGBM: its own handling of blanks "
+                     "beat every fill.")
+    elif down["no_fill_within_one_se"]:
+        lines.append("Not filling is within one standard error of the best fill for LightGBM: "
+                     "for that model, filling buys little.")
+    flagged = [n for n, e in down.get("indicators", {}).items() if e.get("recommend")]
+    if flagged:
+        lines.append(f"Missing-indicator columns help the model for: {', '.join(flagged)}; "
+                     "the plan sets \"indicator\": true for them.")
+    return lines
+
+
 def parse_metrics(values: list[str] | None) -> dict[str, str]:
     """``--metric NAME`` (repeatable) to a primary metric per kind."""
     chosen = dict(PRIMARY)
@@ -114,6 +164,12 @@ def score(
     choose_by: Annotated[str, typer.Option(
         "--choose-by", help="Rank methods by accuracy (the primary metric), distribution "
         "(spread and correlations kept) or balanced (both).")] = "accuracy",
+    target_check: Annotated[bool, typer.Option(
+        "--target-check/--no-target-check",
+        help="With --target: score every fill by cross-validated models of the target.")]
+    = True,
+    target_folds: Annotated[int, typer.Option(
+        "--target-folds", help="Folds of the model experiment.")] = 5,
     sample: Annotated[int, typer.Option(
         help="Run the experiment on at most this many rows (0: all rows).")] = 10_000,
     jobs: Annotated[int, typer.Option("--jobs", "-j", help="Parallel tasks (0: all cores).")]
@@ -148,6 +204,8 @@ def score(
         use_target=use_target,
         n_jobs=jobs or (os.cpu_count() or 1),
         choose_by=choose_by,
+        downstream=target_check,
+        downstream_folds=target_folds,
     )
     table = read_table(file)
     with progress_bar("scoring methods", quiet=quiet) as update:
@@ -167,4 +225,9 @@ def score(
     if target is not None:
         out.print(f"Rows with the target '{target}' missing: "
                   f"{plan.source.get('target_missing_rows', 0)}")
+        models = downstream_rich_table(plan)
+        if models is not None:
+            out.print(models)
+        for line in downstream_lines(plan):
+            out.print(line, highlight=False)
     out.print(f"Plan written to {out_path}")

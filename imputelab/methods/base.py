@@ -37,6 +37,8 @@ class FillMethod(BaseEstimator, abc.ABC):
         Most labels a label column may have for this method to model it.
     source : str
         Where the method is published.
+    uses_other_columns : bool
+        Whether a column's fill depends on the other columns (a model) or not (a statistic).
     """
 
     name: ClassVar[str]
@@ -45,6 +47,9 @@ class FillMethod(BaseEstimator, abc.ABC):
     source: ClassVar[str] = ""
 
     max_labels: ClassVar[int | None] = None
+    #: False for a method that fills each column from that column alone (a statistic): fill
+    #: then fits it on the columns it was chosen for only.
+    uses_other_columns: ClassVar[bool] = True
 
     @classmethod
     def unsupported_reason(cls, kind: str, dtype: Any = None,

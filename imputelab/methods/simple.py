@@ -31,6 +31,8 @@ def most_frequent(column: pd.Series) -> Any:
 class _StatisticFill(FillMethod):
     """Fill each target column with one learned value."""
 
+    uses_other_columns = False
+
     def _statistic(self, column: pd.Series) -> Any:
         raise NotImplementedError
 
