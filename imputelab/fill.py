@@ -11,7 +11,7 @@ import numpy as np
 import pandas as pd
 from threadpoolctl import threadpool_limits
 
-from imputelab.encoding import with_derived
+from imputelab.encoding import Encoding, with_derived
 from imputelab.errors import DataError, ImputelabError, PlanError
 from imputelab.experiment import derive_seed
 from imputelab.io import Table
@@ -23,10 +23,12 @@ from imputelab.prepare import working_setup
 __all__ = [
     "INDICATOR_SUFFIX",
     "FillReport",
+    "FittedFill",
     "check_plan",
     "clean_with_plan",
     "fill_frame",
     "fill_table",
+    "fit_plan",
     "missing_indicators",
 ]
 
@@ -144,6 +146,148 @@ def _groups(plan: Plan, targets: list[str]) -> dict[str, tuple[str, dict[str, An
     return groups
 
 
+@dataclass
+class _Group:
+    """One method of a plan and the columns it fills (``joint``: the ones it models)."""
+
+    method_name: str
+    columns: list[str]
+    joint: list[str]
+    method: Any
+    edited: dict[str, Any]
+
+
+@dataclass
+class FittedFill:
+    """A plan's methods fitted on one table, ready to fill any table with the same columns.
+
+    Made by :func:`fit_plan`; :meth:`apply` fills a cleaned table with it without refitting.
+
+    Attributes
+    ----------
+    plan : Plan
+    encoding : Encoding
+        The working-frame encoding learned on the training table (labels, ranges, rounding).
+    targets : list of str
+        Columns the plan imputes.
+    groups : list
+        Each method with the columns it fills, fitted.
+    """
+
+    plan: Plan
+    encoding: Encoding
+    targets: list[str]
+    groups: list[_Group]
+
+    def apply(self, typed: pd.DataFrame, report: FillReport | None = None) -> pd.DataFrame:
+        """Fill a cleaned table (see :func:`clean_with_plan`) with the fitted methods.
+
+        Returns
+        -------
+        DataFrame
+            ``typed`` without the dropped columns and with every hole of the imputed columns
+            filled; every other cell, the column order and the dtypes unchanged.
+        """
+        report = report if report is not None else FillReport()
+        work = self.encoding.encode(typed)
+        filled = work.copy()
+        with threadpool_limits(limits=1, user_api="blas"):
+            for group in self.groups:
+                out = _guarded(group, lambda g=group: g.method.transform(
+                    with_derived(work, self.encoding.kinds)))
+                for name in group.columns:
+                    filled[name] = out[name]
+                    report.methods[name] = group.method_name
+        return _finish(self.plan, self.encoding, self.targets, filled, typed, report)
+
+
+def _setup(plan: Plan, frame: pd.DataFrame) -> tuple[list[str], Encoding]:
+    specs = _specs(plan)
+    actions = {n: c.action for n, c in plan.columns.items() if n in frame.columns}
+    targets, encoding = working_setup(frame, specs, actions, target=plan.settings.get("target"),
+                                      use_target=bool(plan.settings.get("use_target")))
+    for name in targets:
+        if frame[name].notna().sum() == 0:
+            raise DataError(f"column '{name}' has no observed value to learn a fill from; "
+                            f"set its action to \"drop\" in the plan")
+    return targets, encoding
+
+
+def _make_groups(plan: Plan, typed: pd.DataFrame, targets: list[str], encoding: Encoding,
+                 report: FillReport) -> list[_Group]:
+    seed = int(plan.settings.get("seed", 0))
+    groups = []
+    for method_name, params, columns in _groups(plan, targets).values():
+        method = _make_method(method_name, params, columns, seed, report)
+        reasons = {n: method.unsupported_reason(encoding.kinds[n], typed[n].dtype,
+                                                len(encoding.categories.get(n, [])) or None)
+                   for n in targets}
+        joint = [n for n in targets if reasons[n] is None]
+        if not method.uses_other_columns:  # a statistic: nothing to gain from more columns
+            joint = [n for n in joint if n in columns]
+        bad = [n for n in columns if n not in joint]
+        if bad:
+            raise PlanError(f"plan: column '{bad[0]}': {reasons[bad[0]]}; "
+                            "choose another method in the plan")
+        edited = {k: v for k, v in method.get_params().items()
+                  if k != "random_state" and v != METHODS[method_name]().get_params()[k]}
+        groups.append(_Group(method_name, columns, joint, method, edited))
+    return groups
+
+
+def _guarded(group: _Group, work: Any) -> Any:
+    """Run a group's fit or fill; a failure under edited params is the plan's fault."""
+    try:
+        return work()
+    except ImputelabError:
+        raise
+    except Exception as exc:
+        if not group.edited:
+            raise  # default settings failing is a bug, not bad input
+        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        raise PlanError(
+            f"plan: column '{group.columns[0]}': {group.method_name} failed with params "
+            f"{json.dumps(group.edited, sort_keys=True)} ({first}); fix them in the plan"
+        ) from None
+
+
+def _finish(plan: Plan, encoding: Encoding, targets: list[str], filled: pd.DataFrame,
+            typed: pd.DataFrame, report: FillReport) -> pd.DataFrame:
+    constants = [n for n in targets if plan.columns[n].method == "constant"]
+    result = encoding.decode(filled, typed, unclipped=constants)
+    actions = {n: c.action for n, c in plan.columns.items() if n in typed.columns}
+    for name in targets:
+        report.filled[name] = int(typed[name].isna().sum() - result[name].isna().sum())
+    report.dropped = [n for n, a in actions.items() if a == "drop"]
+    report.excluded = [n for n, a in actions.items() if a == "exclude"]
+    return result.drop(columns=report.dropped)
+
+
+def fit_plan(typed: pd.DataFrame, plan: Plan, report: FillReport | None = None) -> FittedFill:
+    """Fit every method of a plan on a cleaned table, for every column it imputes.
+
+    Parameters
+    ----------
+    typed : DataFrame
+        Cleaned training table (see :func:`clean_with_plan`).
+    plan : Plan
+    report : FillReport, optional
+        Collects warnings (e.g. parameters a method does not take).
+
+    Returns
+    -------
+    FittedFill
+    """
+    report = report if report is not None else FillReport()
+    targets, encoding = _setup(plan, typed)
+    groups = _make_groups(plan, typed, targets, encoding, report)
+    train = with_derived(encoding.encode(typed), encoding.kinds)
+    with threadpool_limits(limits=1, user_api="blas"):
+        for group in groups:
+            _guarded(group, lambda g=group: g.method.fit(train, g.joint))
+    return FittedFill(plan=plan, encoding=encoding, targets=targets, groups=groups)
+
+
 def fill_frame(
     typed: pd.DataFrame,
     plan: Plan,
@@ -170,68 +314,26 @@ def fill_frame(
         other cell, the column order and the dtypes unchanged.
     """
     report = report if report is not None else FillReport()
-    specs = _specs(plan)
-    present = {n: c for n, c in plan.columns.items() if n in typed.columns}
-    actions = {n: c.action for n, c in present.items()}
-    target = plan.settings.get("target")
-    use_target = bool(plan.settings.get("use_target"))
-    fit_frame = typed if fit_on is None else fit_on
-    targets, encoding = working_setup(fit_frame, specs, actions, target=target,
-                                      use_target=use_target)
-    for name in targets:
-        values = fit_frame[name]
-        if values.notna().sum() == 0:
-            raise DataError(f"column '{name}' has no observed value to learn a fill from; "
-                            f"set its action to \"drop\" in the plan")
-    fit_working = encoding.encode(fit_frame)
-    work = fit_working if fit_on is None else encoding.encode(typed)
-    seed = int(plan.settings.get("seed", 0))
+    if fit_on is not None:
+        return fit_plan(fit_on, plan, report).apply(typed, report)
+    targets, encoding = _setup(plan, typed)
+    work = encoding.encode(typed)
+    train = with_derived(work, encoding.kinds)
     filled = work.copy()
-    for method_name, params, columns in _groups(plan, targets).values():
-        method = _make_method(method_name, params, columns, seed, report)
-        reasons = {n: method.unsupported_reason(encoding.kinds[n], typed[n].dtype,
-                                                len(encoding.categories.get(n, [])) or None)
-                   for n in targets}
-        joint = [n for n in targets if reasons[n] is None]
-        if not method.uses_other_columns:  # a statistic: nothing to gain from more columns
-            joint = [n for n in joint if n in columns]
-        bad = [n for n in columns if n not in joint]
-        if bad:
-            raise PlanError(f"plan: column '{bad[0]}': {reasons[bad[0]]}; "
-                            "choose another method in the plan")
-        if fit_on is None:
-            # Filling this file only: a column without holes is a feature, not a model to fit
-            # (it never changes, so the fill is the same and much cheaper on wide tables).
-            holes = {n for n in joint if work[n].isna().any()}
-            joint = [n for n in joint if n in holes]
-            if not any(n in holes for n in columns):
-                report.methods.update(dict.fromkeys(columns, method_name))
-                continue
-        edited = {k: v for k, v in method.get_params().items()
-                  if k != "random_state" and v != METHODS[method_name]().get_params()[k]}
-        try:
-            out = _fit_fill(method, fit_working, work, encoding.kinds, joint,
-                            refit=fit_on is not None)
-        except ImputelabError:
-            raise
-        except Exception as exc:
-            if not edited:
-                raise  # default settings failing is a bug, not bad input
-            first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-            raise PlanError(
-                f"plan: column '{columns[0]}': {method_name} failed with params "
-                f"{json.dumps(edited, sort_keys=True)} ({first}); fix them in the plan"
-            ) from None
-        for name in columns:
+    for group in _make_groups(plan, typed, targets, encoding, report):
+        # Filling this file only: a column without holes is a feature, not a model to fit
+        # (it never changes, so the fill is the same and much cheaper on wide tables).
+        joint = [n for n in group.joint if work[n].isna().any()]
+        if not any(n in joint for n in group.columns):
+            report.methods.update(dict.fromkeys(group.columns, group.method_name))
+            continue
+        with threadpool_limits(limits=1, user_api="blas"):
+            # One BLAS thread: these are many small fits, which threads slow down.
+            out = _guarded(group, lambda g=group, j=joint: g.method.fit_transform(train, j))
+        for name in group.columns:
             filled[name] = out[name]
-            report.methods[name] = method_name
-    constants = [n for n in targets if plan.columns[n].method == "constant"]
-    result = encoding.decode(filled, typed, unclipped=constants)
-    for name in targets:
-        report.filled[name] = int(typed[name].isna().sum() - result[name].isna().sum())
-    report.dropped = [n for n, a in actions.items() if a == "drop"]
-    report.excluded = [n for n, a in actions.items() if a == "exclude"]
-    return result.drop(columns=report.dropped)
+            report.methods[name] = group.method_name
+    return _finish(plan, encoding, targets, filled, typed, report)
 
 
 def _make_method(name: str, params: Mapping[str, Any], columns: list[str], seed: int,
@@ -254,16 +356,6 @@ def _make_method(name: str, params: Mapping[str, Any], columns: list[str], seed:
     if "random_state" in method.get_params():
         method.set_params(random_state=derive_seed(seed, "fill", name))
     return method
-
-
-def _fit_fill(method: Any, fit_working: pd.DataFrame, work: pd.DataFrame,
-              kinds: Mapping[str, str], targets: list[str], *, refit: bool) -> pd.DataFrame:
-    # One BLAS thread: these are many small fits, which threads slow down.
-    with threadpool_limits(limits=1, user_api="blas"):
-        if not refit:
-            return method.fit_transform(with_derived(fit_working, kinds), targets)
-        method.fit(with_derived(fit_working, kinds), targets)
-        return method.transform(with_derived(work, kinds))
 
 
 def render_text(

@@ -17,7 +17,14 @@ from hypothesis import strategies as st
 from threadpoolctl import threadpool_limits
 
 from imputelab.errors import DataError, PlanError
-from imputelab.fill import FillReport, check_plan, clean_with_plan, fill_frame, fill_table
+from imputelab.fill import (
+    FillReport,
+    check_plan,
+    clean_with_plan,
+    fill_frame,
+    fill_table,
+    fit_plan,
+)
 from imputelab.io import Table, read_table, write_table
 from imputelab.kinds import ColumnSpec
 from imputelab.plan import ColumnPlan, Plan
@@ -600,3 +607,16 @@ def test_an_indicator_name_already_in_the_table_is_a_plan_error(scored_csv):
     clash = Table(frame, table.path, table.format)
     with pytest.raises(PlanError, match="already has a column 'stops__was_missing'"):
         fill_table(clash, plan, force=True)
+
+
+def test_a_fitted_plan_applied_to_its_own_table_equals_the_in_memory_fill(scored_csv):
+    # fit_plan + apply is what saved models and chunked fills use; on the training table it
+    # must give exactly what fill_frame gives (the methods' fit_transform == fit + transform).
+    table, plan = scored_csv
+    typed, _ = clean_with_plan(table, plan)
+    direct = fill_frame(typed, plan)
+    fitted = fit_plan(typed, plan)
+    pd.testing.assert_frame_equal(fitted.apply(typed), direct)
+    # and on a slice of rows, row for row
+    part = typed.iloc[10:30]
+    pd.testing.assert_frame_equal(fitted.apply(part), direct.iloc[10:30])
