@@ -65,21 +65,29 @@ def scores_rich_table(plan: Plan) -> RichTable:
     """Each method's mean primary metric per scored column (* = chosen)."""
     methods = list(plan.settings.get("methods", []))
     table = RichTable(title="Scores: mean over masks and repeats of the score the choice "
-                            "ranks by (* = chosen)", title_justify="left")
+                            "ranks by (* = chosen; a structural column is filled by its rule)",
+                      title_justify="left")
     table.add_column("column", no_wrap=True)
     table.add_column("metric")
     for method in methods:
         table.add_column(SHORT.get(method, method), justify="right")
+    rule_filled = []
     for name, col in plan.columns.items():
         if not col.scores:
             continue
         metric = _metric_of(plan, col.kind)
+        structural = col.reason.startswith("structural blank")
         cells = []
         for method in methods:
             value = col.scores.get(method, {}).get(metric)
-            cells.append("" if value is None else
-                         f"{value:.3f}{'*' if method == col.method else ''}")
+            star = "*" if method == col.method and not structural else ""
+            cells.append("" if value is None else f"{value:.3f}{star}")
         table.add_row(name, metric, *cells)
+        if structural:
+            rule_filled.append(name)
+    if rule_filled:
+        table.caption = f"structural, filled by their rule: {', '.join(rule_filled)}"
+        table.caption_justify = "left"
     return table
 
 
