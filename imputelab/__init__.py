@@ -11,23 +11,26 @@ Examples
 """
 
 from imputelab.errors import DataError, ImputelabError, OptionError, PlanError, TableIOError
-from imputelab.fill import FillReport, clean_with_plan, fill_frame, fill_table
+from imputelab.fill import FillReport, FittedFill, clean_with_plan, fill_frame, fill_table, fit_plan
 from imputelab.io import Table, read_table, write_table
 from imputelab.masks import get_mask, get_mask_names
 from imputelab.methods import FillMethod, get_method, get_method_names
 from imputelab.plan import ColumnPlan, Plan
 from imputelab.scoring import ScoreOptions, score_table
 from imputelab.survey import Survey, SurveyOptions, survey_table
+from imputelab.transformer import PlanImputer
 
 __all__ = [
     "ColumnPlan",
     "DataError",
     "FillMethod",
     "FillReport",
+    "FittedFill",
     "ImputelabError",
     "OptionError",
     "Plan",
     "PlanError",
+    "PlanImputer",
     "ScoreOptions",
     "Survey",
     "SurveyOptions",
@@ -36,6 +39,7 @@ __all__ = [
     "clean_with_plan",
     "fill_frame",
     "fill_table",
+    "fit_plan",
     "get_mask",
     "get_mask_names",
     "get_method",

@@ -210,6 +210,8 @@ def _assign(column: pd.Series, holes: np.ndarray, values: np.ndarray) -> pd.Seri
         values = values.astype("int64")
     elif pd.api.types.is_bool_dtype(dtype):
         values = values.astype(bool)
+    elif pd.api.types.is_float_dtype(dtype):  # labels of a 0/1 column stored as floats
+        values = np.asarray(values, dtype=float)
     elif pd.api.types.is_string_dtype(dtype) and not isinstance(dtype, pd.CategoricalDtype):
         values = np.asarray([str(v) for v in values], dtype=object)
     column.iloc[np.flatnonzero(holes)] = values

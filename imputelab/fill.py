@@ -64,8 +64,8 @@ class FillReport:
 def _specs(plan: Plan) -> dict[str, ColumnSpec]:
     out = {}
     for name, col in plan.columns.items():
-        spec = ColumnSpec.from_dict(col.cleaning or {})
-        spec.kind = col.kind  # a user's edit of the kind wins
+        # A user's edit of the kind wins; a hand-written column may give no cleaning at all.
+        spec = ColumnSpec.from_dict({**(col.cleaning or {}), "kind": col.kind})
         out[name] = spec
     return out
 

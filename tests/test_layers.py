@@ -13,8 +13,8 @@ import imputelab
 
 PACKAGE = Path(imputelab.__file__).parent
 ENGINE = {"survey", "scoring", "experiment", "plan", "fill", "prepare", "target_experiment",
-          "evidence",
-          "report", "model", "bench", "cluster", "streaming", "draws", "sklearn"}
+          "evidence", "transformer", "model", "streaming", "draws", "report", "bench",
+          "cluster"}
 LAYER = {"errors": 0, "part": 1, "engine": 2, "cli": 3, "api": 4}
 
 
