@@ -9,6 +9,7 @@ import typer
 
 from imputelab.cli.demo import demo
 from imputelab.cli.fill import fill
+from imputelab.cli.fit import fit
 from imputelab.cli.score import score
 from imputelab.cli.survey import survey
 
@@ -26,6 +27,7 @@ app = typer.Typer(
 app.command()(survey)
 app.command()(score)
 app.command()(fill)
+app.command()(fit)
 app.command()(demo)
 
 

@@ -1,4 +1,4 @@
-"""``imputelab fill FILE --plan plan.json --out OUT``."""
+"""``imputelab fill FILE --plan plan.json --out OUT`` and ``fill FILE --model DIR --out OUT``."""
 
 from __future__ import annotations
 
@@ -10,8 +10,10 @@ from rich.table import Table as RichTable
 
 from imputelab.cli._common import check_output, err, handle_errors, out, print_json
 from imputelab.cli._options import FileArg, JsonOpt, QuietOpt
+from imputelab.errors import OptionError
 from imputelab.fill import FillReport, fill_table
 from imputelab.io import read_table, table_format, write_table
+from imputelab.model import fill_with_model, load_model
 from imputelab.plan import Plan
 
 
@@ -29,8 +31,16 @@ def report_rich_table(report: FillReport) -> RichTable:
 @handle_errors
 def fill(
     file: FileArg,
-    plan_path: Annotated[Path, typer.Option("--plan", "-p", help="A plan made by score.")],
     out_path: Annotated[Path, typer.Option("--out", "-o", help="Output .csv or .parquet.")],
+    plan_path: Annotated[Path | None, typer.Option(
+        "--plan", "-p", help="A plan made by score (its methods are fitted on FILE).")] = None,
+    model_path: Annotated[Path | None, typer.Option(
+        "--model", "-m", help="A model saved by fit: fill without refitting.")] = None,
+    unseen: Annotated[str | None, typer.Option(
+        "--unseen", metavar="keep|missing|mode",
+        help="With --model: an observed label the model never saw is kept as written "
+             "(default), filled as a hole, or replaced by the column's most frequent "
+             "label.")] = None,
     fit_on: Annotated[Path | None, typer.Option(
         "--fit-on", help="Fit the methods on this reference file instead of FILE.")] = None,
     force: Annotated[bool, typer.Option(
@@ -38,14 +48,32 @@ def fill(
     json: JsonOpt = False,
     quiet: QuietOpt = False,
 ) -> None:
-    """Fill every hole of the plan's imputed columns and write the result."""
+    """Fill every hole of the plan's imputed columns and write the result.
+
+    With --plan the methods are fitted on FILE (or --fit-on); with --model a model saved by
+    fit fills FILE without refitting.
+    """
     out_format = table_format(out_path, option="--out")
     check_output(out_path, [file] + ([fit_on] if fit_on else []))
-    plan = Plan.load(plan_path)
-    table = read_table(file)
-    reference = read_table(fit_on, option="--fit-on") if fit_on else None
-    frame, report = fill_table(table, plan, fit_on=reference, force=force,
-                               text_output=out_format == "csv")
+    if (plan_path is None) == (model_path is None):
+        raise OptionError("give --plan (fit the plan's methods on FILE) or --model (a model "
+                          "saved by fit), not both" if plan_path else "give --plan or --model")
+    if model_path is not None:
+        if fit_on is not None or force:
+            raise OptionError("--fit-on and --force go with --plan; a saved model is already "
+                              "fitted")
+        model = load_model(model_path)
+        table = read_table(file)
+        frame, report = fill_with_model(table, model, unseen=unseen or "keep",
+                                        text_output=out_format == "csv")
+    else:
+        if unseen is not None:
+            raise OptionError("--unseen goes with --model")
+        plan = Plan.load(plan_path)
+        table = read_table(file)
+        reference = read_table(fit_on, option="--fit-on") if fit_on else None
+        frame, report = fill_table(table, plan, fit_on=reference, force=force,
+                                   text_output=out_format == "csv")
     write_table(frame, out_path, delimiter=table.delimiter if out_format == "csv" else ",")
     if json:
         print_json({"out": str(out_path), **report.to_dict()})

@@ -147,6 +147,22 @@ class FillMethod(BaseEstimator, abc.ABC):
                 out[name] = column
         return out
 
+    # -- saved models (see imputelab.methods._state) ------------------------------------------
+    def _export_state(self) -> dict[str, Any]:
+        """The fitted state as plain data: dicts, lists, scalars, numpy arrays, booster text.
+
+        Subclasses add their own fitted attributes to this dict.
+        """
+        check_is_fitted(self, "targets_")
+        return {"targets": list(self.targets_),
+                "features": [str(c) for c in self.feature_names_in_]}
+
+    def _import_state(self, state: dict[str, Any]) -> FillMethod:
+        """Set the fitted state written by :meth:`_export_state` on this unfitted method."""
+        self.targets_ = list(state["targets"])
+        self.feature_names_in_ = np.asarray(state["features"], dtype=object)
+        return self
+
     @abc.abstractmethod
     def _fit(self, X: pd.DataFrame, targets: list[str]) -> None: ...
 

@@ -18,7 +18,9 @@ Every fitted model is kept, so ``transform`` on new rows replays the same chain.
 
 from __future__ import annotations
 
+import hashlib
 import warnings
+from collections.abc import Callable
 from typing import Any
 
 import lightgbm as lgb
@@ -27,9 +29,12 @@ import pandas as pd
 from sklearn.exceptions import ConvergenceWarning
 from sklearn.linear_model import BayesianRidge, LogisticRegression
 from sklearn.utils import check_random_state
+from sklearn.utils.validation import check_is_fitted
 
 from imputelab.encoding import derived_from, is_categorical
+from imputelab.errors import DataError
 from imputelab.methods._design import Design, column_stats, frequent_levels
+from imputelab.methods._state import BoosterModel, export_estimator, import_estimator
 from imputelab.methods.base import FillMethod
 from imputelab.methods.simple import most_frequent
 
@@ -60,6 +65,45 @@ class _Standardised:
 
     def predict(self, features: Any) -> np.ndarray:
         return self.model.predict(features) * self.std_ + self.mean_
+
+
+def _export_model(model: Any) -> dict[str, Any]:
+    """One column's fitted model as plain data (for saved models)."""
+    if isinstance(model, _Constant):
+        return {"type": "constant", "value": model.value}
+    if isinstance(model, _Standardised):
+        return {"type": "standardised", "mean": model.mean_, "std": model.std_,
+                "model": _export_model(model.model)}
+    if isinstance(model, lgb.LGBMModel | BoosterModel):
+        booster = model if isinstance(model, BoosterModel) else BoosterModel.from_fitted(model)
+        return {"type": "lightgbm", "booster": booster.to_text(), "classes": booster.classes_}
+    return {"type": "sklearn", **export_estimator(model)}
+
+
+def _import_model(state: dict[str, Any]) -> Any:
+    """Inverse of :func:`_export_model`; a LightGBM model comes back as a :class:`BoosterModel`."""
+    kind = state["type"]
+    if kind == "constant":
+        return _Constant(state["value"])
+    if kind == "standardised":
+        model = _Standardised(_import_model(state["model"]))
+        model.mean_, model.std_ = state["mean"], state["std"]
+        return model
+    if kind == "lightgbm":
+        return BoosterModel(lgb.Booster(model_str=str(state["booster"])), state["classes"])
+    if kind == "sklearn":
+        return import_estimator(state)
+    raise DataError(f"unknown model type '{kind}'")
+
+
+def _column_seed(base: int, sweep: int, name: str) -> int:
+    """A model's seed from the chain's seed, the sweep and the column's name.
+
+    Not from the column's position in the chain: a fill that leaves hole-free columns out of
+    the chain must seed every other column's model as a fit of the whole chain does.
+    """
+    digest = hashlib.sha256(f"{base}|{sweep}|{name}".encode()).digest()
+    return int.from_bytes(digest[:4], "little") >> 1
 
 
 class _ChainedFill(FillMethod):
@@ -98,21 +142,21 @@ class _ChainedFill(FillMethod):
             return source.drop(columns=exclude).iloc[np.flatnonzero(rows)]
         return design.matrix(exclude=exclude, rows=rows)
 
-    def _run(self, X: pd.DataFrame, fitting: bool) -> pd.DataFrame:
+    def _run(self, X: pd.DataFrame, fitting: bool,
+             draw: Callable[..., np.ndarray] | None = None) -> pd.DataFrame:
         missing = {name: X[name].isna().to_numpy() for name in self.targets_}
         state = self._start(X)
         use_design = self.design_mode != "frame"
         design = (Design(state, self.design_mode, self.stats_, self.keep_) if use_design
                   else None)
         if fitting:
-            seeds = check_random_state(self.random_state).randint(
-                0, 2**31 - 1, size=(self.n_sweeps, len(self.order_)))
+            base = int(check_random_state(self.random_state).randint(0, 2**31 - 1))
             self.models_ = []
         for sweep in range(self.n_sweeps):
             raw = X if (self.raw_first_sweep and sweep == 0 and not use_design) else None
             if fitting:
                 self.models_.append({})
-            for position, name in enumerate(self.order_):
+            for name in self.order_:
                 holes = missing[name]
                 categorical = is_categorical(X[name])
                 if fitting:
@@ -120,7 +164,7 @@ class _ChainedFill(FillMethod):
                     features = self._features(state, design, name, observed, raw)
                     target = self._target(X[name], observed)
                     model = self._fit_column(categorical, features, target,
-                                             int(seeds[sweep, position]),
+                                             _column_seed(base, sweep, name),
                                              self._fallback(X[name]))
                     self.models_[sweep][name] = model
                 else:
@@ -128,7 +172,13 @@ class _ChainedFill(FillMethod):
                 if not holes.any():
                     continue
                 features = self._features(state, design, name, holes, raw)
-                predicted = model.predict(features)
+                if draw is None:
+                    predicted = model.predict(features)
+                else:  # multiple imputation: a random draw instead of the prediction
+                    donors = ~holes
+                    predicted = draw(model, features, self._target(X[name], donors),
+                                     lambda d=donors, n=name, r=raw, s=state: self._features(
+                                         s, design, n, d, r), categorical)
                 column = state[name].copy()
                 if categorical:
                     codes = np.asarray(predicted).astype(int)
@@ -168,7 +218,12 @@ class _ChainedFill(FillMethod):
             warnings.simplefilter("ignore", UserWarning)
             return self._fit_model(model, features, target, seed)
 
-    def _fit(self, X: pd.DataFrame, targets: list[str]) -> None:
+    def _fit(self, X: pd.DataFrame, targets: list[str],
+             draw: Callable[..., np.ndarray] | None = None) -> None:
+        if isinstance(self.n_sweeps, bool) or not isinstance(self.n_sweeps, int) or (
+                self.n_sweeps < 1):
+            raise ValueError(f"n_sweeps must be a whole number of at least 1, got "
+                             f"{self.n_sweeps!r}")
         counts = {name: int(X[name].isna().sum()) for name in targets}
         self.order_ = sorted(targets, key=lambda n: (counts[n], targets.index(n)))
         self.excluded_ = {n: [n, *derived_from(n, list(X.columns))] for n in targets}
@@ -187,7 +242,7 @@ class _ChainedFill(FillMethod):
                 values = column.to_numpy(float)
                 ok = np.isfinite(values)
                 self.start_[name] = float(values[ok].mean()) if ok.any() else 0.0
-        self._fitted_state = self._run(X, fitting=True)
+        self._fitted_state = self._run(X, fitting=True, draw=draw)
 
     def _transform(self, X: pd.DataFrame) -> pd.DataFrame:
         return self._run(X, fitting=False)
@@ -201,6 +256,57 @@ class _ChainedFill(FillMethod):
     def fit(self, X: pd.DataFrame, targets=None) -> _ChainedFill:
         """Fit the chain; see :meth:`FillMethod.fit`. The training fill is not kept."""
         super().fit(X, targets)
+        self._fitted_state = None
+        return self
+
+    # -- multiple imputation (imputelab.draws) -----------------------------------------------
+    # ``draw(model, features, donor_target, donor_features, categorical)`` stands in for
+    # ``model.predict(features)`` at every hole-filling step: ``donor_target`` holds the
+    # column's observed values (label codes for labels), ``donor_features()`` builds the
+    # features of those rows from the current sweep's state, and the result is what predict
+    # would return (numbers, or label codes).
+    def transform_with(self, X: pd.DataFrame, draw: Callable[..., np.ndarray]) -> pd.DataFrame:
+        """Replay the fitted chain on ``X`` with ``draw`` in place of every prediction.
+
+        Returns
+        -------
+        DataFrame
+            A copy of ``X``; observed cells are unchanged.
+        """
+        check_is_fitted(self, "targets_")
+        self._check_columns(X)
+        return self._keep_observed(X, self._run(X, fitting=False, draw=draw))
+
+    def fit_transform_with(self, X: pd.DataFrame, targets: Any,
+                           draw: Callable[..., np.ndarray]) -> pd.DataFrame:
+        """Fit the chain with ``draw`` in place of every prediction and return its last fill.
+
+        Every sweep's models learn from the previous sweep's draws, as in chained-equations
+        multiple imputation (van Buuren & Groothuis-Oudshoorn 2011). Call it on a clone:
+        the fitted models are those of this drawing chain.
+        """
+        self._validate(X, targets)
+        self._fit(X, self.targets_, draw=draw)
+        state, self._fitted_state = self._fitted_state, None
+        return self._keep_observed(X, state)
+
+    def _export_state(self) -> dict[str, Any]:
+        return {**super()._export_state(), "order": list(self.order_),
+                "excluded": dict(self.excluded_), "stats": self.stats_, "keep": dict(self.keep_),
+                "start": dict(self.start_),
+                "models": [{name: _export_model(m) for name, m in sweep.items()}
+                           for sweep in self.models_]}
+
+    def _import_state(self, state: dict[str, Any]) -> _ChainedFill:
+        super()._import_state(state)
+        self.order_ = list(state["order"])
+        self.excluded_ = {name: list(cols) for name, cols in state["excluded"].items()}
+        self.stats_ = (None if state["stats"] is None else
+                       {name: tuple(pair) for name, pair in state["stats"].items()})
+        self.keep_ = {name: np.asarray(codes) for name, codes in state["keep"].items()}
+        self.start_ = dict(state["start"])
+        self.models_ = [{name: _import_model(m) for name, m in sweep.items()}
+                        for sweep in state["models"]]
         self._fitted_state = None
         return self
 

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 import pandas as pd
 from sklearn.impute import KNNImputer
@@ -9,6 +11,7 @@ from sklearn.utils import check_random_state
 
 from imputelab.encoding import is_categorical
 from imputelab.methods._design import Design, column_stats, frequent_levels
+from imputelab.methods._state import export_knn, import_knn
 from imputelab.methods.base import FillMethod
 
 __all__ = ["KNNFill"]
@@ -53,6 +56,17 @@ class KNNFill(FillMethod):
             matrix = matrix[rows]
         self.imputer_ = KNNImputer(n_neighbors=self.n_neighbors, keep_empty_features=True)
         self.imputer_.fit(matrix)
+
+    def _export_state(self) -> dict[str, Any]:
+        return {**super()._export_state(), "stats": dict(self.stats_), "keep": dict(self.keep_),
+                "imputer": export_knn(self.imputer_)}
+
+    def _import_state(self, state: dict[str, Any]) -> KNNFill:
+        super()._import_state(state)
+        self.stats_ = {name: tuple(pair) for name, pair in state["stats"].items()}
+        self.keep_ = {name: np.asarray(codes) for name, codes in state["keep"].items()}
+        self.imputer_ = import_knn(state["imputer"])
+        return self
 
     def _transform(self, X: pd.DataFrame) -> pd.DataFrame:
         design = Design(X, "onehot", self.stats_, self.keep_)

@@ -39,6 +39,14 @@ class _StatisticFill(FillMethod):
     def _fit(self, X: pd.DataFrame, targets: list[str]) -> None:
         self.statistics_ = {name: self._statistic(X[name]) for name in targets}
 
+    def _export_state(self) -> dict[str, Any]:
+        return {**super()._export_state(), "statistics": dict(self.statistics_)}
+
+    def _import_state(self, state: dict[str, Any]) -> _StatisticFill:
+        super()._import_state(state)
+        self.statistics_ = dict(state["statistics"])
+        return self
+
     def _transform(self, X: pd.DataFrame) -> pd.DataFrame:
         out = X.copy()
         for name, value in self.statistics_.items():
