@@ -16,6 +16,7 @@ from imputelab.io import Table, read_table, write_table
 from imputelab.masks import get_mask, get_mask_names
 from imputelab.methods import FillMethod, get_method, get_method_names
 from imputelab.plan import ColumnPlan, Plan
+from imputelab.pooling import PooledResult, pool
 from imputelab.scoring import ScoreOptions, score_table
 from imputelab.survey import Survey, SurveyOptions, survey_table
 from imputelab.transformer import PlanImputer
@@ -31,6 +32,7 @@ __all__ = [
     "Plan",
     "PlanError",
     "PlanImputer",
+    "PooledResult",
     "ScoreOptions",
     "Survey",
     "SurveyOptions",
@@ -44,6 +46,7 @@ __all__ = [
     "get_mask_names",
     "get_method",
     "get_method_names",
+    "pool",
     "read_table",
     "score_table",
     "survey_table",

@@ -251,3 +251,27 @@ def test_chained_linear_labels_match_logistic_regression(seed: int) -> None:
     reference = np.mean(model.predict(hours[hidden, None]) == label[hidden])
     assert accuracy == pytest.approx(reference, abs=0.03)
     assert accuracy > 0.75  # well above the 50 % of guessing, so the check has teeth
+
+
+def test_knn_fills_labels_of_a_column_with_more_labels_than_the_one_hot_keeps():
+    # 40 labels, more than the 30 the one-hot design keeps; x determines the label exactly, so
+    # the nearest donors (scikit-learn's KNNImputer on the design) all carry the right one.
+    rng = np.random.default_rng(0)
+    labels = [f"L{i:02d}" for i in range(40)]
+    codes = rng.integers(0, 40, 2000)
+    x = codes.astype(float) * 10.0
+    label = pd.Categorical(np.asarray(labels, dtype=object)[codes], categories=labels)
+    frame = pd.DataFrame({"x": x, "label": label})
+    holes = rng.random(2000) < 0.1
+    masked = frame.copy()
+    masked.loc[holes, "label"] = np.nan
+    from imputelab.methods import get_method
+    method = get_method("knn", random_state=0)
+    filled = method.fit_transform(masked, ["label"])
+    kept = set(np.asarray(labels, dtype=object)[method.keep_["label"]])
+    truth = frame["label"][holes].astype(str)
+    frequent = truth.isin(kept)
+    got = filled["label"][holes].astype(str)
+    # Every hole whose true label is among the kept ones is filled with exactly that label.
+    assert frequent.sum() > 100
+    assert (got[frequent] == truth[frequent]).all()

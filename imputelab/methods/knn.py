@@ -84,6 +84,8 @@ class KNNFill(FillMethod):
             column = out[name].copy()
             if is_categorical(column):
                 codes = np.argmax(block, axis=1)
+                if name in self.keep_:  # the block holds only the frequent labels, in order
+                    codes = np.asarray(self.keep_[name])[codes]
                 values = pd.Categorical.from_codes(codes, categories=column.cat.categories)
                 column.iloc[rows] = values
             else:
