@@ -58,8 +58,10 @@ or the datetime resolution, labels from the training labels; observed cells neve
 
 from __future__ import annotations
 
+import json
 import warnings
 from collections.abc import Callable, Iterator
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -72,7 +74,17 @@ from threadpoolctl import ThreadpoolController
 
 from imputelab.encoding import is_categorical, with_derived
 from imputelab.errors import DataError, OptionError, PlanError
-from imputelab.fill import FillReport, FittedFill, _finish, _Group, _guarded
+from imputelab.fill import (
+    FillReport,
+    FittedFill,
+    _finish,
+    _Group,
+    _guarded,
+    checked_clean,
+    finish_output,
+    fit_plan,
+)
+from imputelab.io import Table, write_table
 from imputelab.methods._design import Design
 from imputelab.methods.chained import (
     ChainedBoostedFill,
@@ -83,8 +95,9 @@ from imputelab.methods.chained import (
 )
 from imputelab.methods.knn import KNNFill
 from imputelab.methods.simple import ConstantFill, MeanFill, MedianFill, ModeFill
+from imputelab.plan import Plan
 
-__all__ = ["N_DONORS", "draw_datasets", "iter_draws"]
+__all__ = ["DRAW_KINDS", "N_DONORS", "draw_datasets", "iter_draws", "write_draws"]
 
 #: Observed cells a hole's prediction is matched to in predictive mean matching; 5 is the
 #: usual choice (van Buuren 2018, sec. 3.4.3; from memory).
@@ -403,3 +416,81 @@ def _knn_predictions(group: _Group, frame: pd.DataFrame
         out[name] = (lambda rng, d=predicted[~holes], h=predicted[holes],
                      v=_values(frame[name])[~holes]: _matched_draw(d, h, v, rng))
     return out
+
+
+def write_draws(
+    table: Table,
+    plan: Plan,
+    m: int,
+    out_dir: str | Path,
+    *,
+    fit_on: Table | None = None,
+    force: bool = False,
+    progress: Callable[[int, int], None] | None = None,
+) -> tuple[list[Path], FillReport, dict[str, Any]]:
+    """Write ``m`` completed copies of a table, each filled with fresh random draws.
+
+    The table is checked and cleaned as :func:`~imputelab.fill.fill_table` does; the plan's
+    methods are fitted on it (proper chained-equations draws, ``refit=True``) or, with
+    ``fit_on``, on the reference and then replayed on the table (``refit=False``). File ``i``
+    is ``out_dir/<stem>_draw<i>.<ext>`` in the table's own format, with the plan's indicator
+    columns; ``out_dir/draws.json`` records how each column was drawn.
+
+    Returns
+    -------
+    paths : list of Path
+    report : FillReport
+    info : dict
+        The content of ``draws.json``.
+    """
+    report = FillReport()
+    out_dir = Path(out_dir)
+    if out_dir.exists() and not out_dir.is_dir():
+        raise OptionError(f"--out '{out_dir}' is a file; with --draws it must be a folder")
+    typed, reference = checked_clean(table, plan, report, fit_on=fit_on, force=force)
+    planned = [c for c in typed.columns if c in plan.columns]
+    fitted = fit_plan(typed[planned] if reference is None else reference[planned], plan, report)
+    seed = int(plan.settings.get("seed", 0))
+    out_dir.mkdir(parents=True, exist_ok=True)
+    width = max(2, len(str(m)))
+    paths = []
+    for i, filled in enumerate(iter_draws(fitted, typed[planned], m, seed=seed,
+                                          refit=reference is None, report=report), start=1):
+        frame = finish_output(table, plan, typed, filled, text_output=table.is_text)
+        path = out_dir / f"{table.path.stem}_draw{i:0{width}d}{table.path.suffix}"
+        paths.append(write_table(frame, path, delimiter=table.delimiter))
+        if progress is not None:
+            progress(i, m)
+    info = {
+        "format": "imputelab-draws",
+        "version": 1,
+        "source": table.path.name,
+        "fingerprint": f"sha256:{table.fingerprint}",
+        "m": m,
+        "seed": seed,
+        "refit": reference is None,
+        "files": [p.name for p in paths],
+        "methods": {g.method_name: {"columns": list(g.columns),
+                                    "draws": DRAW_KINDS.get(g.method_name, "")}
+                    for g in fitted.groups},
+        "warnings": list(report.warnings),
+        "pooling": "analyse each file, then combine with imputelab.pool (Rubin's rules)",
+    }
+    (out_dir / "draws.json").write_text(json.dumps(info, indent=2) + "\n", encoding="utf-8")
+    return paths, report, info
+
+
+#: How each method draws (written to draws.json).
+DRAW_KINDS = {
+    "chained-linear": "posterior draws: Bayesian ridge coefficients and noise for numbers, a "
+                      "bootstrapped logistic model for labels, in every sweep",
+    "chained-forest": "predictive mean matching: one of the 5 observed donors nearest in "
+                      "prediction",
+    "chained-boosted": "predictive mean matching: one of the 5 observed donors nearest in "
+                       "prediction",
+    "knn": "predictive mean matching on the neighbours' prediction",
+    "mean": "approximate Bayesian bootstrap of the observed values (proper under MCAR only)",
+    "median": "approximate Bayesian bootstrap of the observed values (proper under MCAR only)",
+    "mode": "approximate Bayesian bootstrap of the observed values (proper under MCAR only)",
+    "constant": "the same constant in every file (no uncertainty)",
+}

@@ -25,9 +25,11 @@ __all__ = [
     "FillReport",
     "FittedFill",
     "check_plan",
+    "checked_clean",
     "clean_with_plan",
     "fill_frame",
     "fill_table",
+    "finish_output",
     "fit_plan",
     "missing_indicators",
 ]
@@ -422,6 +424,24 @@ def fill_table(
     report : FillReport
     """
     report = FillReport()
+    typed, reference = checked_clean(table, plan, report, fit_on=fit_on, force=force)
+    planned = [c for c in typed.columns if c in plan.columns]
+    filled = fill_frame(typed[planned], plan, fit_on=None if reference is None
+                        else reference[planned], report=report)
+    return finish_output(table, plan, typed, filled, text_output=text_output), report
+
+
+def checked_clean(table: Table, plan: Plan, report: FillReport, *, fit_on: Table | None = None,
+                  force: bool = False) -> tuple[pd.DataFrame, pd.DataFrame | None]:
+    """Check a plan against the table (and the ``--fit-on`` reference), then clean both.
+
+    Returns
+    -------
+    typed : DataFrame
+        The table cleaned by the plan.
+    reference : DataFrame or None
+        The reference cleaned by the plan, when given.
+    """
     if fit_on is None:
         report.warnings.extend(check_plan(plan, table, force=force))
     else:
@@ -443,9 +463,16 @@ def fill_table(
         missing = [c for c in plan.columns if c in typed.columns and c not in reference.columns]
         if missing:
             raise DataError(f"--fit-on '{fit_on.path}' lacks columns {', '.join(missing)}")
-    planned = [c for c in typed.columns if c in plan.columns]
-    filled = fill_frame(typed[planned], plan, fit_on=None if reference is None
-                        else reference[planned], report=report)
+    return typed, reference
+
+
+def finish_output(table: Table, plan: Plan, typed: pd.DataFrame, filled: pd.DataFrame, *,
+                  text_output: bool = True) -> pd.DataFrame:
+    """The filled planned columns with the unplanned ones back in place and the indicators.
+
+    For CSV input with ``text_output``, the original text of every observed cell.
+    """
+    filled = filled.copy()
     for name in typed.columns:  # unplanned columns pass through in place (with --force)
         if name not in plan.columns:
             filled[name] = typed[name]
@@ -453,8 +480,8 @@ def fill_table(
     flags = missing_indicators(typed, plan, filled.columns)
     if table.is_text and text_output:
         out = render_text(table, typed, filled, _specs(plan))
-        return pd.concat([out, flags.astype("str")], axis=1), report
-    return pd.concat([filled, flags], axis=1), report
+        return pd.concat([out, flags.astype("str")], axis=1)
+    return pd.concat([filled, flags], axis=1)
 
 
 INDICATOR_SUFFIX = "__was_missing"

@@ -8,8 +8,16 @@ from typing import Annotated
 import typer
 from rich.table import Table as RichTable
 
-from imputelab.cli._common import check_output, err, handle_errors, out, print_json
+from imputelab.cli._common import (
+    check_output,
+    err,
+    handle_errors,
+    out,
+    print_json,
+    progress_bar,
+)
 from imputelab.cli._options import FileArg, JsonOpt, QuietOpt
+from imputelab.draws import write_draws
 from imputelab.errors import OptionError
 from imputelab.fill import FillReport, fill_table
 from imputelab.io import read_table, table_format, write_table
@@ -45,6 +53,10 @@ def fill(
         "--fit-on", help="Fit the methods on this reference file instead of FILE.")] = None,
     force: Annotated[bool, typer.Option(
         "--force", help="Fill even when the plan was made from a different file.")] = False,
+    draws: Annotated[int, typer.Option(
+        "--draws", metavar="M",
+        help="Multiple imputation: write M completed copies into the folder --out, each "
+             "filled with fresh random draws (analyse each, then pool).")] = 0,
     json: JsonOpt = False,
     quiet: QuietOpt = False,
 ) -> None:
@@ -53,6 +65,9 @@ def fill(
     With --plan the methods are fitted on FILE (or --fit-on); with --model a model saved by
     fit fills FILE without refitting.
     """
+    if draws:
+        _fill_draws(file, out_path, plan_path, model_path, fit_on, force, draws, json, quiet)
+        return
     out_format = table_format(out_path, option="--out")
     check_output(out_path, [file] + ([fit_on] if fit_on else []))
     if (plan_path is None) == (model_path is None):
@@ -87,3 +102,31 @@ def fill(
         out.print(f"Dropped: {', '.join(report.dropped)}")
     out.print(f"Wrote {out_path} ({len(frame)} rows, {frame.shape[1]} columns). Filled values "
               "are estimates, not measurements.")
+
+
+def _fill_draws(file: Path, out_dir: Path, plan_path: Path | None, model_path: Path | None,
+                fit_on: Path | None, force: bool, m: int, json: bool, quiet: bool) -> None:
+    if m < 2:
+        raise OptionError(f"--draws must be at least 2 (Rubin's rules need two or more "
+                          f"completed tables), got {m}")
+    if model_path is not None or plan_path is None:
+        raise OptionError("--draws goes with --plan: the draws refit the plan's chains on FILE")
+    if out_dir.suffix.lower() in (".csv", ".parquet"):
+        raise OptionError(f"--out '{out_dir}': with --draws, give a folder for the M files")
+    plan = Plan.load(plan_path)
+    table = read_table(file)
+    reference = read_table(fit_on, option="--fit-on") if fit_on else None
+    with progress_bar("drawing completed tables", quiet=quiet or json) as update:
+        paths, report, info = write_draws(table, plan, m, out_dir, fit_on=reference,
+                                          force=force, progress=update)
+    if json:
+        print_json({"out": str(out_dir), "files": [str(p) for p in paths], **info})
+        return
+    if quiet:
+        return
+    for warning in report.warnings:
+        err.print(f"warning: {warning}", markup=False, soft_wrap=True)
+    out.print(f"Wrote {m} completed tables to {out_dir} ({paths[0].name} ... "
+              f"{paths[-1].name}) and draws.json. Analyse each table, then combine the "
+              "estimates with imputelab.pool (Rubin's rules). Filled values are estimates, "
+              "not measurements.")
