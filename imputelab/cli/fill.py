@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 from pathlib import Path
 from typing import Annotated
 
@@ -23,6 +24,8 @@ from imputelab.fill import FillReport, fill_table
 from imputelab.io import read_table, table_format, write_table
 from imputelab.model import fill_with_model, load_model
 from imputelab.plan import Plan
+from imputelab.streaming import DEFAULT_CHUNK_ROWS, DEFAULT_FIT_SAMPLE, stream_fill
+from imputelab.streaming import fit_sample as sample_and_fit
 
 
 def report_rich_table(report: FillReport) -> RichTable:
@@ -53,6 +56,18 @@ def fill(
         "--fit-on", help="Fit the methods on this reference file instead of FILE.")] = None,
     force: Annotated[bool, typer.Option(
         "--force", help="Fill even when the plan was made from a different file.")] = False,
+    stream: Annotated[bool | None, typer.Option(
+        "--stream/--no-stream",
+        help="Fill chunk by chunk, in flat memory (default: when FILE is over 256 MiB). With "
+             "--plan the methods are then fitted on a sample of --fit-sample rows.")] = None,
+    sample_rows: Annotated[int, typer.Option(
+        "--fit-sample", metavar="N",
+        help="When streaming with --plan: fit on a uniform sample of N rows (a file of at "
+             "most N rows is fitted whole).")] = DEFAULT_FIT_SAMPLE,
+    chunk_rows: Annotated[int, typer.Option(
+        "--chunk-rows", help="Rows per chunk when streaming.")] = DEFAULT_CHUNK_ROWS,
+    jobs: Annotated[int, typer.Option(
+        "--jobs", "-j", help="Chunks filled in parallel when streaming.")] = 1,
     draws: Annotated[int, typer.Option(
         "--draws", metavar="M",
         help="Multiple imputation: write M completed copies into the folder --out, each "
@@ -70,6 +85,12 @@ def fill(
         return
     out_format = table_format(out_path, option="--out")
     check_output(out_path, [file] + ([fit_on] if fit_on else []))
+    if stream is None:
+        stream = file.is_file() and file.stat().st_size > STREAM_ABOVE_BYTES
+    if stream:
+        _fill_streaming(file, out_path, plan_path, model_path, fit_on, force, unseen,
+                        sample_rows, chunk_rows, jobs, json, quiet)
+        return
     if (plan_path is None) == (model_path is None):
         raise OptionError("give --plan (fit the plan's methods on FILE) or --model (a model "
                           "saved by fit), not both" if plan_path else "give --plan or --model")
@@ -130,3 +151,51 @@ def _fill_draws(file: Path, out_dir: Path, plan_path: Path | None, model_path: P
               f"{paths[-1].name}) and draws.json. Analyse each table, then combine the "
               "estimates with imputelab.pool (Rubin's rules). Filled values are estimates, "
               "not measurements.")
+
+
+#: Files larger than this are filled chunk by chunk unless --no-stream is given.
+STREAM_ABOVE_BYTES = 256 * 2**20
+
+
+def _fill_streaming(file: Path, out_path: Path, plan_path: Path | None,
+                    model_path: Path | None, fit_on: Path | None, force: bool,
+                    unseen: str | None, sample_rows: int, chunk_rows: int, jobs: int,
+                    json: bool, quiet: bool) -> None:
+    if (plan_path is None) == (model_path is None):
+        raise OptionError("give --plan or --model, not both" if plan_path else
+                          "give --plan or --model")
+    if unseen not in (None, "keep"):
+        raise OptionError("--unseen missing|mode needs the whole file in memory; pass "
+                          "--no-stream")
+    if sample_rows < 1 or chunk_rows < 1 or jobs < 0:
+        raise OptionError("--fit-sample and --chunk-rows must be at least 1, --jobs 0 or more")
+    n_jobs = jobs or (os.cpu_count() or 1)
+    note = ""
+    with progress_bar("filling in chunks", quiet=quiet or json) as update:
+        if model_path is not None:
+            if fit_on is not None or force:
+                raise OptionError("--fit-on and --force go with --plan; a saved model is "
+                                  "already fitted")
+            model = load_model(model_path)
+            fitted, plan, report = model.fitted, model.plan, FillReport()
+            report.warnings.extend(model.warnings)
+        else:
+            plan = Plan.load(plan_path)
+            source, option = (fit_on, "--fit-on") if fit_on else (file, "FILE")
+            fitted, report = sample_and_fit(source, plan, n=sample_rows, force=force,
+                                            option=option)
+            note = f" Methods fitted on at most {sample_rows:,} rows of {source.name}."
+        report = stream_fill(file, out_path, fitted, plan, chunk_rows=chunk_rows,
+                             progress=update, report=report, n_jobs=n_jobs)
+    if json:
+        print_json({"out": str(out_path), "streamed": True, **report.to_dict()})
+        return
+    if quiet:
+        return
+    for warning in report.warnings:
+        err.print(f"warning: {warning}", markup=False, soft_wrap=True)
+    out.print(report_rich_table(report))
+    if report.dropped:
+        out.print(f"Dropped: {', '.join(report.dropped)}")
+    out.print(f"Wrote {out_path}, chunk by chunk.{note} Filled values are estimates, not "
+              "measurements.")

@@ -1,4 +1,4 @@
-"""``fill --draws M``: M completed tables; filled cells differ, observed cells do not."""
+"""``fill --draws M`` and ``fill --stream``: many completed tables, and chunked fills."""
 
 from __future__ import annotations
 
@@ -44,3 +44,19 @@ def test_draws_need_a_folder_and_at_least_two(trip_log_csv, trip_log_plan, tmp_p
         result = invoke("fill", trip_log_csv, "--plan", trip_log_plan, "--draws", *args)
         assert result.exit_code == 2
         assert message in result.stderr and "Traceback" not in result.stderr
+
+
+def test_fill_stream_writes_the_same_bytes_as_the_in_memory_fill(
+        trip_log_csv, trip_log_plan, tmp_path):
+    whole, chunked = tmp_path / "whole.csv", tmp_path / "chunked.csv"
+    ok(invoke("fill", trip_log_csv, "--plan", trip_log_plan, "--out", whole, "-q"))
+    result = ok(invoke("fill", trip_log_csv, "--plan", trip_log_plan, "--out", chunked,
+                       "--stream", "--chunk-rows", 70))
+    assert "chunk by chunk" in result.stdout
+    assert chunked.read_bytes() == whole.read_bytes()
+
+
+def test_fill_stream_refuses_what_needs_the_whole_file(trip_log_csv, tmp_path):
+    result = invoke("fill", trip_log_csv, "--model", tmp_path / "m", "--out", tmp_path / "o.csv",
+                    "--stream", "--unseen", "mode")
+    assert result.exit_code == 2 and "--no-stream" in result.stderr
