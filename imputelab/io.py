@@ -223,13 +223,30 @@ def _sniff_delimiter(sample: str) -> str:
     if not lines:
         return ","
     try:
-        return csv.Sniffer().sniff("\n".join(lines), delimiters="".join(_DELIMITERS)).delimiter
+        guess = csv.Sniffer().sniff("\n".join(lines), delimiters="".join(_DELIMITERS)).delimiter
     except csv.Error:
         # The sniffer gives up on one-column files and very regular numbers; fall back to the
         # delimiter that splits the header into the most fields consistently.
         counts = {d: lines[0].count(d) for d in _DELIMITERS}
         best = max(counts, key=counts.get)
-        return best if counts[best] > 0 else ","
+        guess = best if counts[best] > 0 else ","
+    if _splits_evenly(sample, guess):
+        return guess
+    # The sniffer counts delimiters inside quoted cells too (a ';' in a quoted text of a
+    # comma file); keep to a delimiter whose quoted parse gives every row the same width.
+    return next((d for d in _DELIMITERS if _splits_evenly(sample, d)), guess)
+
+
+def _splits_evenly(sample: str, delimiter: str) -> bool:
+    """Whether parsing the sample (quotes honoured) gives one width of 2+ fields to all rows."""
+    try:
+        rows = [r for r in csv.reader(io.StringIO(sample), delimiter=delimiter) if r]
+    except csv.Error:
+        return False
+    if len(rows) > 1:
+        rows = rows[:-1]  # the sample may end inside the last row
+    widths = {len(r) for r in rows}
+    return len(widths) == 1 and widths.pop() > 1
 
 
 _COMMA_DECIMAL = re.compile(r"^-?\d+,\d+$")

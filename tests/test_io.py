@@ -384,3 +384,15 @@ def test_writing_with_unknown_extension_is_refused(tmp_path):
     with pytest.raises(TableIOError, match=r"--out '.*out\.xlsx': unknown extension '\.xlsx'"):
         write_table(pd.DataFrame({"a": [1]}), tmp_path / "out.xlsx")
     assert _listing(tmp_path) == []
+
+
+def test_a_delimiter_inside_quoted_cells_does_not_fool_the_sniffer(tmp_path):
+    # Found by hypothesis (tests/test_streaming.py): ';' inside quoted cells of a comma file.
+    # Reference: Python's csv module reads the file back as pandas wrote it.
+    frame = pd.DataFrame([("", "", ';"'), ("", "", ";,")], columns=["a", "b b", 'c"'])
+    path = tmp_path / "cells.csv"
+    frame.to_csv(path, index=False, sep=",", lineterminator="\n")
+    table = read_table(path)
+    assert table.delimiter == ","
+    assert list(table.frame.columns) == ["a", "b b", 'c"']
+    assert table.frame['c"'].tolist() == [';"', ";,"]
