@@ -111,8 +111,15 @@ def fill(
         frame, report = fill_table(table, plan, fit_on=reference, force=force,
                                    text_output=out_format == "csv")
     write_table(frame, out_path, delimiter=table.delimiter if out_format == "csv" else ",")
+    _print_report(report, out_path, f" ({len(frame)} rows, {frame.shape[1]} columns).", json,
+                  quiet)
+
+
+def _print_report(report: FillReport, out_path: Path, how: str, json: bool, quiet: bool,
+                  **extra: object) -> None:
+    """The fill's report: JSON on stdout, or warnings, the table and one closing line."""
     if json:
-        print_json({"out": str(out_path), **report.to_dict()})
+        print_json({"out": str(out_path), **extra, **report.to_dict()})
         return
     if quiet:
         return
@@ -121,8 +128,7 @@ def fill(
     out.print(report_rich_table(report))
     if report.dropped:
         out.print(f"Dropped: {', '.join(report.dropped)}")
-    out.print(f"Wrote {out_path} ({len(frame)} rows, {frame.shape[1]} columns). Filled values "
-              "are estimates, not measurements.")
+    out.print(f"Wrote {out_path}{how} Filled values are estimates, not measurements.")
 
 
 def _fill_draws(file: Path, out_dir: Path, plan_path: Path | None, model_path: Path | None,
@@ -187,15 +193,4 @@ def _fill_streaming(file: Path, out_path: Path, plan_path: Path | None,
             note = f" Methods fitted on at most {sample_rows:,} rows of {source.name}."
         report = stream_fill(file, out_path, fitted, plan, chunk_rows=chunk_rows,
                              progress=update, report=report, n_jobs=n_jobs)
-    if json:
-        print_json({"out": str(out_path), "streamed": True, **report.to_dict()})
-        return
-    if quiet:
-        return
-    for warning in report.warnings:
-        err.print(f"warning: {warning}", markup=False, soft_wrap=True)
-    out.print(report_rich_table(report))
-    if report.dropped:
-        out.print(f"Dropped: {', '.join(report.dropped)}")
-    out.print(f"Wrote {out_path}, chunk by chunk.{note} Filled values are estimates, not "
-              "measurements.")
+    _print_report(report, out_path, f", chunk by chunk.{note}", json, quiet, streamed=True)
