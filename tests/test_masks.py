@@ -420,3 +420,13 @@ def test_mnar_categorical_rates_differ_by_category() -> None:
     hidden = get_mask("mnar").sample(X, ["door"], 0.3, rng)[:, 0]
     # Reference library: scipy.stats.chi2_contingency, test of independence.
     assert chi2_contingency(pd.crosstab(X["door"], hidden)).pvalue < 1e-6
+
+
+def test_a_label_driver_with_every_cell_missing_gives_no_effect() -> None:
+    # Found by hypothesis (test_contract_property[mar]): a categorical column with no
+    # observed label used to crash the effect lookup.
+    from imputelab.masks.base import standardized_effect
+
+    empty = pd.Series(pd.Categorical([None] * 5, categories=["a", "b"]))
+    np.testing.assert_array_equal(standardized_effect(empty, np.random.default_rng(0)),
+                                  np.zeros(5))

@@ -166,7 +166,10 @@ def standardized_effect(series: pd.Series, rng: np.random.Generator) -> np.ndarr
     else:
         codes, uniques = pd.factorize(series, use_na_sentinel=True)
         effects = rng.standard_normal(len(uniques))
-        values = np.where(codes >= 0, effects[np.maximum(codes, 0)], np.nan)
+        if len(uniques):
+            values = np.where(codes >= 0, effects[np.maximum(codes, 0)], np.nan)
+        else:  # every cell missing: no label to give an effect
+            values = np.full(len(series), np.nan)
     finite = np.isfinite(values)
     z = np.zeros(values.shape, dtype=float)
     if finite.sum() < 2:
