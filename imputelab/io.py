@@ -26,8 +26,8 @@ import pyarrow.parquet as pq
 
 from imputelab.errors import DataError, TableIOError
 
-__all__ = ["FORMATS", "Table", "atomic_path", "file_fingerprint", "read_table", "table_format",
-           "write_table"]
+__all__ = ["FORMATS", "Table", "atomic_path", "check_file", "file_fingerprint", "read_table",
+           "table_format", "write_table"]
 
 FORMATS = {".csv": "csv", ".parquet": "parquet", ".pq": "parquet"}
 _SNIFF_BYTES = 1 << 16
@@ -91,6 +91,20 @@ def file_fingerprint(path: str | os.PathLike[str]) -> str:
     return digest.hexdigest()
 
 
+def check_file(path: Path, option: str) -> None:
+    """Raise a TableIOError unless ``path`` is a non-empty regular file (named by ``option``)."""
+    if not path.exists():
+        raise TableIOError(f"{option} '{path}': no such file; check the path")
+    if not path.is_file():
+        what = "a folder" if path.is_dir() else "a special file"
+        raise TableIOError(
+            f"{option} '{path}' is not a file; give the path of a .csv or .parquet file, "
+            f"not {what}"
+        )
+    if path.stat().st_size == 0:
+        raise TableIOError(f"{option} '{path}' is empty; give a file with a header and rows")
+
+
 def read_table(path: str | os.PathLike[str], *, option: str = "FILE") -> Table:
     """Read a CSV or Parquet file.
 
@@ -122,16 +136,7 @@ def read_table(path: str | os.PathLike[str], *, option: str = "FILE") -> Table:
     """
     path = Path(path)
     fmt = table_format(path, option=option)
-    if not path.exists():
-        raise TableIOError(f"{option} '{path}': no such file; check the path")
-    if not path.is_file():
-        what = "a folder" if path.is_dir() else "a special file"
-        raise TableIOError(
-            f"{option} '{path}' is not a file; give the path of a .csv or .parquet file, "
-            f"not {what}"
-        )
-    if path.stat().st_size == 0:
-        raise TableIOError(f"{option} '{path}' is empty; give a file with a header and rows")
+    check_file(path, option)
     try:
         fingerprint = file_fingerprint(path)
     except OSError as exc:

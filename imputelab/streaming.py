@@ -56,6 +56,7 @@ from imputelab.io import (
     _sniff_decimal,
     _sniff_delimiter,
     atomic_path,
+    check_file,
     file_fingerprint,
     table_format,
 )
@@ -129,20 +130,6 @@ class _CsvLayout:
     start: int  # first byte after the header row
     stop: int  # end of the bytes that hold rows
     size: int
-
-
-def _check_file(path: Path, option: str) -> None:
-    """The checks read_table makes before reading (same messages)."""
-    if not path.exists():
-        raise TableIOError(f"{option} '{path}': no such file; check the path")
-    if not path.is_file():
-        what = "a folder" if path.is_dir() else "a special file"
-        raise TableIOError(
-            f"{option} '{path}' is not a file; give the path of a .csv or .parquet file, "
-            f"not {what}"
-        )
-    if path.stat().st_size == 0:
-        raise TableIOError(f"{option} '{path}' is empty; give a file with a header and rows")
 
 
 def _first_row_end(text: str, delimiter: str) -> tuple[int, int] | None:
@@ -450,7 +437,7 @@ def _open(path: str | os.PathLike[str], option: str, *,
           digest: Any = None) -> _CsvChunks | _ParquetChunks:
     path = Path(path)
     fmt = table_format(path, option=option)
-    _check_file(path, option)
+    check_file(path, option)
     return _CsvChunks(path, option, digest=digest) if fmt == "csv" else _ParquetChunks(path,
                                                                                        option)
 
