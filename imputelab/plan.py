@@ -27,6 +27,7 @@ from typing import Any
 from imputelab.errors import PlanError
 from imputelab.io import atomic_path
 from imputelab.kinds import KINDS
+from imputelab.metrics import PRIMARY
 
 __all__ = [
     "ACTIONS",
@@ -111,6 +112,18 @@ class Plan:
     format: str = PLAN_FORMAT
     version: int = PLAN_VERSION
     downstream: dict[str, Any] = field(default_factory=dict)
+
+    def ranking_metric(self, kind: str) -> str:
+        """The score the choice ranked a column of ``kind`` by.
+
+        The primary metric of its family (``settings.metrics``), or the ``--choose-by``
+        score (``distribution``, ``balanced``) when the plan was made with one.
+        """
+        choose_by = self.settings.get("choose_by", "accuracy")
+        if choose_by != "accuracy":
+            return choose_by
+        family = "numeric" if kind in ("numeric", "datetime") else "categorical"
+        return (self.settings.get("metrics") or PRIMARY).get(family, PRIMARY[family])
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready dict, floats rounded to six significant digits."""

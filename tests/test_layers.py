@@ -113,3 +113,23 @@ def test_the_checker_sees_an_upward_import(tmp_path):
     fake.write_text("from imputelab.scoring import score_table\n", encoding="utf-8")
     assert imports_of(fake) == {"imputelab.scoring", "imputelab.scoring.score_table"}
     assert LAYER[layer_of("imputelab.scoring")] > LAYER[layer_of("imputelab.metrics")]
+
+
+def third_party_imports(path: Path) -> set[str]:
+    found = set()
+    for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+        if isinstance(node, ast.ImportFrom) and node.module and node.level == 0:
+            found.add(node.module.split(".")[0])
+        elif isinstance(node, ast.Import):
+            found.update(a.name.split(".")[0] for a in node.names)
+    return found
+
+
+def test_plotting_lives_only_in_the_charts_part():
+    # charts is a part (not in ENGINE): pure figure builders; the report engine draws through
+    # it, so matplotlib is imported nowhere else.
+    assert layer_of("imputelab.charts") == "part"
+    assert layer_of("imputelab.report") == "engine"
+    users = sorted(module_name(p) for p in PACKAGE.rglob("*.py")
+                   if "matplotlib" in third_party_imports(p))
+    assert users == ["imputelab.charts"]

@@ -10,6 +10,7 @@ import typer
 from imputelab.cli.demo import demo
 from imputelab.cli.fill import fill
 from imputelab.cli.fit import fit
+from imputelab.cli.report import report
 from imputelab.cli.score import score
 from imputelab.cli.survey import survey
 
@@ -28,6 +29,7 @@ app.command()(survey)
 app.command()(score)
 app.command()(fill)
 app.command()(fit)
+app.command()(report)
 app.command()(demo)
 
 

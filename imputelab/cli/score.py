@@ -40,15 +40,6 @@ SHORT = {"constant": "const", "chained-linear": "linear", "chained-forest": "for
          "chained-boosted": "boosted"}
 
 
-def _metric_of(plan: Plan, kind: str) -> str:
-    """The score the plan chose by: the primary metric, or the --choose-by score."""
-    choose_by = plan.settings.get("choose_by", "accuracy")
-    if choose_by != "accuracy":
-        return choose_by
-    family = "numeric" if kind in ("numeric", "datetime") else "categorical"
-    return plan.settings.get("metrics", PRIMARY).get(family, PRIMARY[family])
-
-
 def plan_rich_table(plan: Plan) -> RichTable:
     """The plan's decisions and reasons, as a terminal table."""
     table = RichTable(title="Plan", title_justify="left")
@@ -75,7 +66,7 @@ def scores_rich_table(plan: Plan) -> RichTable:
     for name, col in plan.columns.items():
         if not col.scores:
             continue
-        metric = _metric_of(plan, col.kind)
+        metric = plan.ranking_metric(col.kind)
         structural = col.reason.startswith("structural blank")
         cells = []
         for method in methods:
