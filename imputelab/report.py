@@ -692,6 +692,9 @@ def build_report(
     """
     import imputelab.charts as charts  # matplotlib loads only when a report is made
 
+    # The plan as written to plan.json (numbers rounded), so a report made by score and one
+    # made later from the saved file are the same page.
+    plan = Plan.from_dict(plan.to_dict())
     steps = 2 + len(SECTIONS)
     tick = progress or (lambda done, total: None)
     fill = FillReport()

@@ -27,7 +27,7 @@ from cli_helpers import column, invoke, load, ok, read_cells
 
 from imputelab.demo import DEMO_COLUMNS
 
-COMMANDS = ("survey", "score", "fill", "demo")
+COMMANDS = ("survey", "score", "fill", "report", "demo")
 # Disguised blanks the generator plants (imputelab.demo.PLANTED, payload_kg): with the blank
 # cell, every way a trip-log cell can be missing before a user confirms a code.
 HOLES = frozenset({"", "not weighed", "n/a", "?"})
@@ -426,7 +426,7 @@ def test_demo_end_to_end(tmp_path):
     folder = tmp_path / "demo"
     result = invoke("demo", "--out", folder, "--quiet")
     ok(result)
-    names = {"trips.csv", "survey.json", "plan.json", "trips_filled.csv"}
+    names = {"trips.csv", "survey.json", "plan.json", "trips_filled.csv", "report.html"}
     assert names <= {p.name for p in folder.iterdir()}
     survey = load(folder / "survey.json")
     assert survey["rows"] == 5000
@@ -446,7 +446,7 @@ def test_demo_in_a_real_process(tmp_path):
                           capture_output=True, text=True, timeout=300)
     assert done.returncode == 0, done.stderr
     where = json.loads(done.stdout)
-    for key in ("data", "survey", "plan", "filled"):
+    for key in ("data", "survey", "plan", "filled", "report"):
         assert Path(where[key]).is_file(), key
     plan = load(Path(where["plan"]))
     check_filled_csv(Path(where["data"]), Path(where["filled"]), plan)

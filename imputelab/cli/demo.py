@@ -22,6 +22,7 @@ from imputelab.cli.survey import evidence_lines, survey_rich_table
 from imputelab.demo import write_trip_log
 from imputelab.fill import fill_table
 from imputelab.io import read_table, write_table
+from imputelab.report import write_report
 from imputelab.scoring import ScoreOptions, score_table
 from imputelab.survey import SurveyOptions
 
@@ -42,7 +43,7 @@ def demo(
     quiet: Annotated[bool, typer.Option("--quiet", "-q", help="Print nothing but errors.")]
     = False,
 ) -> None:
-    """Generate the demo trip log, then survey it, score the methods and fill it."""
+    """Generate the demo trip log, survey it, score the methods, fill it, and write a report."""
     start = time.perf_counter()
     out_dir.mkdir(parents=True, exist_ok=True)
     chatty = not (quiet or json)
@@ -75,9 +76,13 @@ def demo(
     plan_path = plan.save(out_dir / "plan.json")
     frame, report = fill_table(table, plan)
     filled_path = write_table(frame, out_dir / "trips_filled.csv")
+    with progress_bar("writing the report", quiet=not chatty) as update:
+        report_path = write_report(out_dir / "report.html", table, plan, survey=survey,
+                                   progress=update)
     seconds = time.perf_counter() - start
     where = {"data": str(data), "survey": str(survey_path), "plan": str(plan_path),
-             "filled": str(filled_path), "seconds": round(seconds, 1)}
+             "filled": str(filled_path), "report": str(report_path),
+             "seconds": round(seconds, 1)}
     if json:
         print_json(where)
         return
@@ -86,6 +91,6 @@ def demo(
         out.print(report_rich_table(report))
         out.print(f"\nDone in {seconds:.0f} s.")
         out.print(f"  data    {data}\n  survey  {survey_path}\n  plan    {plan_path}\n"
-                  f"  filled  {filled_path}")
+                  f"  filled  {filled_path}\n  report  {report_path}")
         out.print("Filled values are estimates, not measurements; under MNAR every method can "
                   "be biased. Keep the plan with the analysis.")

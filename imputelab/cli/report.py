@@ -36,8 +36,7 @@ def report_line(path: Path) -> str:
     """One closing line for the terminal."""
     info = report_summary(path)
     return (f"Report written to {path} ({info['bytes'] / 1024:.0f} KB, {info['charts']} "
-            "charts; self-contained, open it in any browser). Filled values are estimates, "
-            "not measurements.")
+            "charts, self-contained). Filled values are estimates, not measurements.")
 
 
 @handle_errors
@@ -76,4 +75,4 @@ def report(
     if json:
         print_json(report_summary(out_path))
     elif not quiet:
-        out.print(report_line(out_path), markup=False)
+        out.print(report_line(out_path), markup=False, soft_wrap=True)

@@ -29,10 +29,12 @@ from imputelab.cli._options import (
     TargetOpt,
     survey_options,
 )
+from imputelab.cli.report import report_line
 from imputelab.errors import OptionError
 from imputelab.io import read_table
 from imputelab.metrics import PRIMARY, get_metric
 from imputelab.plan import Plan
+from imputelab.report import write_report
 from imputelab.scoring import ScoreOptions, score_table
 from imputelab.survey import DEFAULT_DROP_THRESHOLD
 
@@ -181,11 +183,16 @@ def score(
     drop_threshold: DropOpt = DEFAULT_DROP_THRESHOLD,
     target: TargetOpt = None,
     checks: ChecksOpt = True,
+    report_path: Annotated[Path | None, typer.Option(
+        "--report", help="Also write a self-contained HTML report (charts of the survey, the "
+                         "experiment and the fill) to this path.")] = None,
     json: JsonOpt = False,
     quiet: QuietOpt = False,
 ) -> None:
     """Hide known cells, fill them with every method, score them, and write a plan."""
     check_output(out_path, [file])
+    if report_path is not None:
+        check_output(report_path, [file, out_path], option="--report")
     if use_target and target is None:
         raise OptionError("--use-target needs --target COLUMN")
     if jobs < 0:
@@ -210,6 +217,9 @@ def score(
     with progress_bar("scoring methods", quiet=quiet) as update:
         plan, survey, result = score_table(table, options, progress=update)
     plan.save(out_path)
+    if report_path is not None:
+        with progress_bar("writing the report", quiet=quiet) as update:
+            write_report(report_path, table, plan, survey=survey, progress=update)
     if json:
         print_json(plan.to_dict())
         return
@@ -230,3 +240,5 @@ def score(
         for line in downstream_lines(plan):
             out.print(line, highlight=False)
     out.print(f"Plan written to {out_path}")
+    if report_path is not None:
+        out.print(report_line(report_path), markup=False, soft_wrap=True)
