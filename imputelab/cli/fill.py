@@ -100,16 +100,18 @@ def fill(
                               "fitted")
         model = load_model(model_path)
         table = read_table(file)
-        frame, report = fill_with_model(table, model, unseen=unseen or "keep",
-                                        text_output=out_format == "csv")
+        with progress_bar("filling", quiet=quiet or json):
+            frame, report = fill_with_model(table, model, unseen=unseen or "keep",
+                                            text_output=out_format == "csv")
     else:
         if unseen is not None:
             raise OptionError("--unseen goes with --model")
         plan = Plan.load(plan_path)
         table = read_table(file)
         reference = read_table(fit_on, option="--fit-on") if fit_on else None
-        frame, report = fill_table(table, plan, fit_on=reference, force=force,
-                                   text_output=out_format == "csv")
+        with progress_bar("fitting and filling", quiet=quiet or json):
+            frame, report = fill_table(table, plan, fit_on=reference, force=force,
+                                       text_output=out_format == "csv")
     write_table(frame, out_path, delimiter=table.delimiter if out_format == "csv" else ",")
     _print_report(report, out_path, f" ({len(frame)} rows, {frame.shape[1]} columns).", json,
                   quiet)

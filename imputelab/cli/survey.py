@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from rich.table import Table as RichTable
 
-from imputelab.cli._common import handle_errors, out, print_json
+from imputelab.cli._common import handle_errors, out, print_json, progress_bar
 from imputelab.cli._options import (
     ChecksOpt,
     CodeOpt,
@@ -105,7 +105,9 @@ def survey(
     """Survey a table: kinds, missing cells, disguised blanks, codes, what the blanks mean."""
     options = survey_options(kind, missing_code, date_format, drop_threshold, target,
                              checks=checks, jobs=jobs)
-    result = survey_table(read_table(file), options)
+    table = read_table(file)
+    with progress_bar("surveying", quiet=quiet or json):  # the checks fit classifiers
+        result = survey_table(table, options)
     if json:
         print_json(result.to_dict())
     elif not quiet:
