@@ -17,6 +17,7 @@ from imputelab.masks import get_mask, get_mask_names
 from imputelab.methods import FillMethod, get_method, get_method_names
 from imputelab.plan import ColumnPlan, Plan
 from imputelab.pooling import PooledResult, pool
+from imputelab.report import build_report, write_report
 from imputelab.scoring import ScoreOptions, score_table
 from imputelab.survey import Survey, SurveyOptions, survey_table
 from imputelab.transformer import PlanImputer
@@ -38,6 +39,7 @@ __all__ = [
     "SurveyOptions",
     "Table",
     "TableIOError",
+    "build_report",
     "clean_with_plan",
     "fill_frame",
     "fill_table",
@@ -50,5 +52,6 @@ __all__ = [
     "read_table",
     "score_table",
     "survey_table",
+    "write_report",
     "write_table",
 ]

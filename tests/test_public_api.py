@@ -7,7 +7,8 @@ EXPECTED = {
     "Plan", "PlanError", "ScoreOptions", "Survey", "SurveyOptions", "Table", "TableIOError",
     "clean_with_plan", "fill_frame", "fill_table", "get_mask", "get_mask_names", "get_method",
     "get_method_names", "read_table", "score_table", "survey_table", "write_table",
-    "FittedFill", "fit_plan", "PlanImputer", "PooledResult", "pool",
+    "FittedFill", "fit_plan", "PlanImputer", "PooledResult", "pool", "build_report",
+    "write_report",
 }
 
 
