@@ -193,9 +193,9 @@ def missing_map(blank: np.ndarray, columns: Sequence[str], *, total_rows: int | 
         for side in ("left", "bottom"):
             ax.spines[side].set_visible(False)
         ax.tick_params(length=0)
-        sampled = (f"{n_rows:,} of {total_rows:,} rows, a uniform sample"
-                   if total_rows is not None and total_rows > n_rows else f"{n_rows:,} rows")
-        ax.set_ylabel(f"row ({sampled}; grouped by pattern, commonest first)")
+        sampled = (f"{n_rows:,} of {total_rows:,} sampled"
+                   if total_rows is not None and total_rows > n_rows else f"{n_rows:,}")
+        ax.set_ylabel(f"row, by pattern ({sampled})")
         ax.set_xlabel("column")
         ax.set_title("Blank cells, row by row")
         _legend(fig, [Patch(facecolor=OBSERVED, label="blank"),
@@ -317,10 +317,15 @@ def method_scores(
                                markersize=4.5, markerfacecolor=PAPER, markeredgecolor=INK,
                                markeredgewidth=0.9, label=f"mean under {mask}")
                 handles.append(dots[0])
-        top = float(np.nanmax(values + err)) if len(values) else 1.0
+        # Each row's label goes right of everything drawn on that row (bar, error bar, marks).
+        right = values + err
+        for i, name in enumerate(names):
+            marks = [v for v in (by_mask or {}).get(name, {}).values() if v is not None]
+            right[i] = max([right[i], *marks])
+        top = float(np.nanmax(right)) if len(values) else 1.0
         for i, name in enumerate(names):
             text = f"{values[i]:.3g}" + ("  chosen" if name == chosen else "")
-            ax.text(values[i] + err[i] + top * 0.015, i, text, va="center", fontsize=8,
+            ax.text(right[i] + top * 0.02, i, text, va="center", fontsize=8,
                     fontweight="bold" if name == chosen else "normal")
         ax.set_xlim(0, top * 1.28 if top > 0 else 1.0)
         better = "higher" if greater_is_better else "lower"

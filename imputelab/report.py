@@ -189,7 +189,10 @@ def _pct(value: float) -> str:
 def _num(value: Any, digits: int = 4) -> str:
     if value is None or (isinstance(value, float) and not math.isfinite(value)):
         return "n/a"
-    return f"{float(value):.{digits}g}"
+    value = float(value)
+    if 10 ** digits <= abs(value) < 1e15:  # whole thousands read better than 1.2e+04
+        return f"{value:,.0f}"
+    return f"{value:.{digits}g}"
 
 
 def _section_overview(facts: _Facts) -> str:
@@ -654,6 +657,8 @@ figure,table,.strip,.note,dl{break-inside:avoid}
 tr{break-inside:avoid}
 h2,h3{break-after:avoid}
 figure.chart{border-left-width:2px}
+.strip{grid-template-columns:repeat(3,1fr)}
+.stat{border-bottom:1px solid var(--rule)}
 code{background:none;padding:0}
 }
 @page{size:A4;margin:14mm 13mm 16mm}

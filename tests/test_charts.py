@@ -47,7 +47,7 @@ def test_missing_map_draws_one_box_per_run_of_blanks_and_says_when_sampled():
     # After grouping: column a is blank in rows 0-2 (one run), b in row 5, c never.
     assert len(boxes.get_paths()) == 2
     assert [t.get_text() for t in ax.get_xticklabels()] == ["a", "b", "c"]
-    assert "6 of 600 rows" in ax.get_ylabel() and "sample" in ax.get_ylabel()
+    assert "6 of 600" in ax.get_ylabel() and "sample" in ax.get_ylabel()
     assert legend_texts(fig) == ["blank", "has a value"]
     whole = charts.missing_map(blank, ["a", "b", "c"])
     assert "sample" not in whole.axes[0].get_ylabel()
