@@ -413,3 +413,14 @@ def test_indicator_must_be_a_json_boolean(value):
     data["columns"][name]["indicator"] = value
     with pytest.raises(PlanError, match=f"column '{name}': \"indicator\" must be true or false"):
         Plan.from_dict(data)
+
+
+def test_ranking_metric_is_the_primary_metric_or_the_choose_by_score():
+    plan = Plan(source={}, settings={"metrics": {"numeric": "mae", "categorical": "pfc"}},
+                columns={})
+    assert plan.ranking_metric("numeric") == "mae"
+    assert plan.ranking_metric("datetime") == "mae"  # dates are scored as numbers
+    assert plan.ranking_metric("binary") == "pfc"
+    assert Plan(source={}, settings={}, columns={}).ranking_metric("numeric") == "nrmse"
+    ranked = Plan(source={}, settings={"choose_by": "distribution"}, columns={})
+    assert ranked.ranking_metric("categorical") == "distribution"
