@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import typer
 
+from imputelab.cli.bench import bench
 from imputelab.cli.demo import demo
 from imputelab.cli.fill import fill
 from imputelab.cli.fit import fit
@@ -29,6 +30,7 @@ app.command()(score)
 app.command()(fill)
 app.command()(fit)
 app.command()(demo)
+app.command()(bench)
 
 
 def main() -> None:
