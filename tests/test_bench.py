@@ -42,9 +42,10 @@ def test_bayes_floor_of_a_row_with_nothing_observed_is_the_mean() -> None:
 def test_tiny_bench_runs_end_to_end(tmp_path) -> None:
     out = tmp_path / "bench"
     result = ok(invoke("bench", "--datasets", "airquality", "--masks", "mcar", "--repeats", 1,
-                       "--selection-repeats", 1, "--jobs", 1, "--out", out))
-    assert "plan / best scikit-learn reference" in result.output
+                       "--selection-repeats", 1, "--jobs", 1, "--json", "--out", out))
     data = json.loads((out / "results.json").read_text())
+    printed = json.loads(result.stdout)  # --json: the same results on stdout, nothing else
+    assert printed["datasets"] == data["datasets"]
     summary = data["datasets"]["airquality"]["masks"]["mcar"]
     methods = summary["methods"]
     assert set(REFERENCES) <= set(methods) and PLAN in methods and "blend" in methods
