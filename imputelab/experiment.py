@@ -25,9 +25,10 @@ from threadpoolctl import threadpool_limits
 from imputelab.encoding import is_categorical, with_derived
 from imputelab.masks import get_mask
 from imputelab.methods import get_method
+from imputelab.methods.blend import COMPONENTS, fit_blend
 from imputelab.metrics import correlation_shift, score_cells, variance_ratio
 
-__all__ = ["ExperimentResult", "derive_seed", "run_experiment"]
+__all__ = ["ExperimentResult", "derive_seed", "draw_hidden", "run_experiment"]
 
 
 def derive_seed(*parts: int | str) -> int:
@@ -56,6 +57,17 @@ class ExperimentResult:
         Methods that raised, with mask, repeat and message; the run went on without them.
     hidden : dict
         Number of hidden cells per column and mask (first repeat).
+    blend : dict
+        With ``blend`` and its components in the grid: ``weights`` and ``label_method``
+        fitted on every draw (what a plan stores), and ``draws``, the weights each draw was
+        scored with (fitted on the other draws' hidden cells only).
+    task_seconds : dict
+        Fit + fill seconds per ``(mask, repeat, method)``.
+    fills : dict
+        With ``keep_fills``: ``{(mask, repeat): {method: {column: values}}}``, each
+        method's values in the cells that were empty after masking, in row order.
+    draws : list
+        ``(mask, repeat, hidden)`` of every draw, ``hidden`` a boolean rows x columns array.
     """
 
     scores: pd.DataFrame
@@ -63,6 +75,10 @@ class ExperimentResult:
     skipped: dict[str, dict[str, str]] = field(default_factory=dict)
     failures: list[dict[str, Any]] = field(default_factory=list)
     hidden: dict[str, dict[str, int]] = field(default_factory=dict)
+    blend: dict[str, Any] = field(default_factory=dict)
+    task_seconds: dict[tuple[str, int, str], float] = field(default_factory=dict)
+    fills: dict[tuple[str, int], dict[str, dict[str, np.ndarray]]] = field(default_factory=dict)
+    draws: list[tuple[str, int, np.ndarray]] = field(default_factory=list)
 
 
 def _score_task(
@@ -75,16 +91,11 @@ def _score_task(
     params: Mapping[str, Any],
     targets: Sequence[str],
     seed: int,
-) -> tuple[list[dict[str, Any]], float, str | None]:
+    keep: bool = False,
+) -> tuple[list[dict[str, Any]], float, str | None, dict[str, np.ndarray] | None]:
     with threadpool_limits(limits=1):
         start = time.perf_counter()
-        masked = working.copy()
-        for j, name in enumerate(columns):
-            rows = np.flatnonzero(hidden[:, j])
-            if len(rows):
-                column = masked[name].copy()
-                column.iloc[rows] = np.nan
-                masked[name] = column
+        masked = _masked(working, hidden, columns)
         try:
             estimator = get_method(method, **params)
             if "random_state" in estimator.get_params():
@@ -92,8 +103,37 @@ def _score_task(
             filled = estimator.fit_transform(with_derived(masked, kinds), list(targets))
         except Exception as exc:  # one method's failure is recorded; the grid goes on
             last = traceback.format_exception_only(type(exc), exc)[-1].strip()
-            return [], time.perf_counter() - start, last
+            return [], time.perf_counter() - start, last, None
         seconds = time.perf_counter() - start
+    # The fills of every empty cell (hidden or a real hole), for blends and benchmarks.
+    fills = ({name: _values(filled[name])[masked[name].isna().to_numpy()] for name in targets}
+             if keep else None)
+    return _score_filled(working, filled, hidden, columns, scales, method, targets), seconds, \
+        None, fills
+
+
+def _masked(working: pd.DataFrame, hidden: np.ndarray, columns: Sequence[str]) -> pd.DataFrame:
+    masked = working.copy()
+    for j, name in enumerate(columns):
+        rows = np.flatnonzero(hidden[:, j])
+        if len(rows):
+            column = masked[name].copy()
+            column.iloc[rows] = np.nan
+            masked[name] = column
+    return masked
+
+
+def _values(column: pd.Series) -> np.ndarray:
+    """Numbers as float, labels as objects."""
+    if is_categorical(column):
+        return column.astype(object).to_numpy()
+    return column.to_numpy(float)
+
+
+def _score_filled(working: pd.DataFrame, filled: pd.DataFrame, hidden: np.ndarray,
+                  columns: Sequence[str], scales: Mapping[str, float], method: str,
+                  targets: Sequence[str]) -> list[dict[str, Any]]:
+    """Every metric of every target column on the hidden cells of one filled frame."""
     numeric = [n for n in columns if not is_categorical(working[n])]
     rows_out = []
     for j, name in enumerate(columns):
@@ -118,7 +158,7 @@ def _score_task(
             record["balanced"] = 0.5 * (record["nrmse"] + record["distribution"])
         record.update(column=name, method=method, n_hidden=int(cells.sum()))
         rows_out.append(record)
-    return rows_out, seconds, None
+    return rows_out
 
 
 def _distribution_checks(working: pd.DataFrame, filled: pd.DataFrame, name: str,
@@ -149,6 +189,7 @@ def run_experiment(
     dtypes: Mapping[str, Any] | None = None,
     n_jobs: int = 1,
     progress: Callable[[int, int], None] | None = None,
+    keep_fills: bool = False,
 ) -> ExperimentResult:
     """Score every method on every column under every mask.
 
@@ -176,10 +217,19 @@ def run_experiment(
         Parallel tasks (joblib); BLAS and LightGBM run one thread per task.
     progress : callable, optional
         Called as ``progress(done, total)`` after each task.
+    keep_fills : bool
+        Keep every method's fills (:attr:`ExperimentResult.fills`).
 
     Returns
     -------
     ExperimentResult
+
+    Notes
+    -----
+    With ``blend`` and all its components among the methods, the blend costs no fit of its
+    own: draw ``r`` is scored with weights fitted on the components' fills of the *other*
+    draws, on their hidden cells that draw ``r`` does not hide (cross-fitting: no hidden
+    value of draw ``r`` takes part), and the plan's weights come from every draw.
     """
     columns = list(columns)
     dtypes = dtypes or {}
@@ -201,26 +251,21 @@ def run_experiment(
         if not is_categorical(working[name]):
             values = working[name].to_numpy(float)
             scales[name] = float(np.nanstd(values)) if np.isfinite(values).any() else np.nan
-    draws = []
-    hidden_counts: dict[str, dict[str, int]] = {}
-    for mask_name in masks:
-        mask = get_mask(mask_name)
-        for repeat in range(repeats):
-            rng = np.random.default_rng(derive_seed(seed, mask_name, repeat))
-            hidden = mask.sample(working, columns, rate, rng)
-            draws.append((mask_name, repeat, hidden))
-            if repeat == 0:
-                hidden_counts[mask_name] = {c: int(hidden[:, j].sum())
-                                            for j, c in enumerate(columns)}
+    draws = draw_hidden(working, columns, masks, rate, repeats, seed)
+    hidden_counts = {mask_name: {c: int(hidden[:, j].sum()) for j, c in enumerate(columns)}
+                     for mask_name, repeat, hidden in draws if repeat == 0}
+    crossfit = "blend" in methods and all(m in methods for m in COMPONENTS)
+    keep = set(methods) if keep_fills else set(COMPONENTS) if crossfit else set()
     tasks = [
         (mask_name, repeat, hidden, method)
         for mask_name, repeat, hidden in draws
         for method in methods
-        if targets[method]
+        if targets[method] and not (crossfit and method == "blend")
     ]
     jobs = (
         delayed(_score_task)(working, kinds, hidden, columns, scales, method, methods[method],
-                             targets[method], derive_seed(seed, mask_name, repeat, method))
+                             targets[method], derive_seed(seed, mask_name, repeat, method),
+                             method in keep)
         for mask_name, repeat, hidden, method in tasks
     )
     if n_jobs == 1:
@@ -229,22 +274,123 @@ def run_experiment(
         results = Parallel(n_jobs=n_jobs, return_as="generator")(jobs)
     records: list[dict[str, Any]] = []
     seconds = dict.fromkeys(methods, 0.0)
+    task_seconds: dict[tuple[str, int, str], float] = {}
+    fills: dict[tuple[str, int], dict[str, dict[str, np.ndarray]]] = {}
     failures = []
-    for done, ((mask_name, repeat, _, method), (rows, spent, error)) in enumerate(
+    for done, ((mask_name, repeat, _, method), (rows, spent, error, kept)) in enumerate(
         zip(tasks, results, strict=True), start=1
     ):
         seconds[method] += spent
+        task_seconds[(mask_name, repeat, method)] = spent
         if error:
             failures.append({"method": method, "mask": mask_name, "repeat": repeat,
                              "error": error})
+        if kept is not None:
+            fills.setdefault((mask_name, repeat), {})[method] = kept
         for row in rows:
             row.update(mask=mask_name, repeat=repeat)
             records.append(row)
         if progress is not None:
             progress(done, len(tasks))
+    blend: dict[str, Any] = {}
+    if crossfit and targets["blend"]:
+        blend = _crossfit_blend(working, columns, scales, draws, fills, targets["blend"])
+        for mask_name, repeat, hidden in draws:
+            entry = blend["draws"].get(f"{mask_name}/{repeat}")
+            if entry is None:
+                continue
+            filled = _blended(working, columns, hidden, fills[(mask_name, repeat)],
+                              targets["blend"], entry)
+            for row in _score_filled(working, filled, hidden, columns, scales, "blend",
+                                     targets["blend"]):
+                row.update(mask=mask_name, repeat=repeat)
+                records.append(row)
+            spent = sum(task_seconds[(mask_name, repeat, m)] for m in COMPONENTS)
+            seconds["blend"] += spent
+            task_seconds[(mask_name, repeat, "blend")] = spent
+            if keep_fills:
+                fills[(mask_name, repeat)]["blend"] = {
+                    n: _values(filled[n])[_masked(working, hidden, columns)[n].isna()
+                                          .to_numpy()] for n in targets["blend"]}
     scores = pd.DataFrame.from_records(records)
     if len(scores):
         front = ["column", "method", "mask", "repeat", "n_hidden"]
         scores = scores[front + [c for c in scores.columns if c not in front]]
+    if not keep_fills:
+        fills = {}
     return ExperimentResult(scores=scores, seconds=seconds, skipped=skipped,
-                            failures=failures, hidden=hidden_counts)
+                            failures=failures, hidden=hidden_counts, blend=blend,
+                            task_seconds=task_seconds, fills=fills, draws=draws)
+
+
+def draw_hidden(working: pd.DataFrame, columns: Sequence[str], masks: Sequence[str],
+                rate: float, repeats: int, seed: int) -> list[tuple[str, int, np.ndarray]]:
+    """The hidden cells of every (mask, repeat) draw, seeded by ``(seed, mask, repeat)``."""
+    draws = []
+    for mask_name in masks:
+        mask = get_mask(mask_name)
+        for repeat in range(repeats):
+            rng = np.random.default_rng(derive_seed(seed, mask_name, repeat))
+            draws.append((mask_name, repeat, mask.sample(working, list(columns), rate, rng)))
+    return draws
+
+
+def _holes(working: pd.DataFrame, hidden: np.ndarray, j: int, name: str) -> np.ndarray:
+    """Cells of a column empty after masking: hidden ones and real holes."""
+    return hidden[:, j] | working[name].isna().to_numpy()
+
+
+def _crossfit_blend(working: pd.DataFrame, columns: Sequence[str],
+                    scales: Mapping[str, float], draws: list[tuple[str, int, np.ndarray]],
+                    fills: Mapping[tuple[str, int], Mapping[str, Mapping[str, np.ndarray]]],
+                    targets: Sequence[str]) -> dict[str, Any]:
+    """Blend weights for every draw from the other draws, and from all draws for the plan."""
+    complete = [d for d in draws if all(m in fills.get((d[0], d[1]), {}) for m in COMPONENTS)]
+    index = {name: j for j, name in enumerate(columns)}
+
+    def fit(used: list[tuple[str, int, np.ndarray]], exclude: np.ndarray | None) -> dict:
+        truth: dict[str, list] = {n: [] for n in targets}
+        guesses: dict[str, dict[str, list]] = {n: {m: [] for m in COMPONENTS} for n in targets}
+        for mask_name, repeat, hidden in used:
+            for name in targets:
+                j = index[name]
+                holes = np.flatnonzero(_holes(working, hidden, j, name))
+                pick = hidden[holes, j]
+                if exclude is not None:
+                    pick &= ~exclude[holes, j]
+                truth[name].append(_values(working[name])[holes[pick]])
+                for m in COMPONENTS:
+                    guesses[name][m].append(fills[(mask_name, repeat)][m][name][pick])
+        truth_all = {n: np.concatenate(v) for n, v in truth.items() if v}
+        guess_all = {n: {m: np.concatenate(g[m]) for m in COMPONENTS}
+                     for n, g in guesses.items() if truth[n]}
+        numeric = {n: scales[n] for n in truth_all if n in scales}
+        weights, labels = fit_blend(truth_all, guess_all, numeric)
+        return {"weights": weights, "label_method": labels}
+
+    per_draw = {}
+    equal = {"weights": {m: 1 / len(COMPONENTS) for m in COMPONENTS}, "label_method": None}
+    for draw in complete:
+        others = [d for d in complete if d is not draw]
+        # A lone draw has nothing to fit on: the plain average (no weights are learnt).
+        per_draw[f"{draw[0]}/{draw[1]}"] = fit(others, draw[2]) if others else equal
+    overall = fit(complete, None) if complete else {}
+    return {**overall, "draws": per_draw}
+
+
+def _blended(working: pd.DataFrame, columns: Sequence[str], hidden: np.ndarray,
+             fills: Mapping[str, Mapping[str, np.ndarray]], targets: Sequence[str],
+             entry: Mapping[str, Any]) -> pd.DataFrame:
+    """The blend's filled frame of one draw, from its components' fills."""
+    filled = _masked(working, hidden, columns)
+    weights, labels = entry["weights"], entry["label_method"]
+    for name in targets:
+        j = columns.index(name)
+        holes = np.flatnonzero(_holes(working, hidden, j, name))
+        column = filled[name].copy()
+        if is_categorical(working[name]):
+            column.iloc[holes] = fills[labels or max(weights, key=weights.get)][name]
+        else:
+            column.iloc[holes] = sum(w * fills[m][name] for m, w in weights.items())
+        filled[name] = column
+    return filled

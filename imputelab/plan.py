@@ -206,6 +206,7 @@ def choose_method(
     metric: str,
     greater_is_better: bool,
     order: Sequence[str] = (),
+    paired_se: Mapping[str, float] | None = None,
 ) -> tuple[str, str]:
     """The one-standard-error rule: the simplest method within one SE of the best.
 
@@ -220,6 +221,11 @@ def choose_method(
     greater_is_better : bool
     order : sequence of str
         Tie-break order for methods of equal simplicity and equal mean.
+    paired_se : mapping, optional
+        Standard error of each method's per-draw difference from the best method on the same
+        hidden cells. When given, a method is close when its mean is within its own paired
+        SE of the best (draws that are hard for every method no longer widen the band);
+        otherwise within the best method's SE.
 
     Returns
     -------
@@ -240,9 +246,16 @@ def choose_method(
     best = min(usable, key=lambda m: (sign * usable[m][0], rank.get(m, 99)))
     best_mean, best_se = usable[best]
     se = best_se if math.isfinite(best_se) else 0.0
-    bound = best_mean + se if not greater_is_better else best_mean - se
+
+    def band(m: str) -> float:
+        if paired_se is None:
+            return se
+        value = paired_se.get(m, 0.0)
+        return value if math.isfinite(value) else 0.0
+
     close = [m for m, (mean, _) in usable.items()
-             if (mean <= bound if not greater_is_better else mean >= bound)]
+             if (mean <= best_mean + band(m) if not greater_is_better
+                 else mean >= best_mean - band(m))]
     chosen = min(close, key=lambda m: (simplicity.get(m, 99), sign * usable[m][0],
                                        rank.get(m, 99)))
     ranking = sorted(usable, key=lambda m: sign * usable[m][0])
@@ -250,8 +263,9 @@ def choose_method(
     spread = f"± {best_se:.2g} SE" if best_se > 0 else "one draw: no SE"
     text = f"{best} had the best mean {metric} ({best_mean:.4g} {spread})"
     if chosen != best:
-        text += (f"; {chosen} ({usable[chosen][0]:.4g}) is within one standard error and "
-                 "simpler, so it is chosen")
+        which = "of the paired differences" if paired_se is not None else ""
+        text += (f"; {chosen} ({usable[chosen][0]:.4g}) is within one standard error "
+                 f"{which} and simpler, so it is chosen").replace("  ", " ")
     elif runner is not None:
         text += f"; next was {runner} ({usable[runner][0]:.4g})"
     return chosen, text

@@ -18,6 +18,7 @@ from imputelab.experiment import ExperimentResult, derive_seed, run_experiment
 from imputelab.io import Table
 from imputelab.masks import get_mask_names
 from imputelab.methods import METHODS, get_method_names
+from imputelab.methods.blend import COMPONENTS
 from imputelab.metrics import PRIMARY, get_metric
 from imputelab.plan import ColumnPlan, Plan, choose_method
 from imputelab.prepare import default_action, working_setup
@@ -28,6 +29,7 @@ __all__ = ["CHOOSE_BY", "DEFAULT_MASKS", "ScoreOptions", "plan_from_experiment",
 
 DEFAULT_MASKS = ("mcar", "mar", "mnar")
 CHOOSE_BY = ("accuracy", "distribution", "balanced")
+CHOICE_RULES = ("table", "paired", "unpaired")
 MIN_OBSERVED = 10  # fewer observed cells than this cannot be split into hidden and kept
 
 
@@ -78,6 +80,12 @@ class ScoreOptions:
         (:mod:`imputelab.target_experiment`); the target never fills a feature there.
     downstream_folds : int
         Folds of that experiment.
+    choice_rule : {"table", "paired", "unpaired"}
+        ``table``: every column of a kind takes the method with the best mean score over all
+        those columns, unless another method beats it on the column by more than two
+        standard errors of their paired per-draw differences. ``paired``: the one-SE rule
+        per column with the SE of each method's per-draw difference from the best on the
+        same hidden cells; ``unpaired``: the one-SE rule with the best method's own SE.
     """
 
     survey: SurveyOptions = field(default_factory=SurveyOptions)
@@ -93,6 +101,7 @@ class ScoreOptions:
     choose_by: str = "accuracy"
     downstream: bool = True
     downstream_folds: int = 5
+    choice_rule: str = "table"
 
     def validate(self) -> None:
         """Check ranges and names; raise :class:`OptionError`."""
@@ -119,6 +128,9 @@ class ScoreOptions:
             raise OptionError("--methods: give at least one method")
         if self.downstream_folds < 2:
             raise OptionError(f"--target-folds must be at least 2, got {self.downstream_folds}")
+        if self.choice_rule not in CHOICE_RULES:
+            raise OptionError(f"choice rule must be one of {', '.join(CHOICE_RULES)}, "
+                              f"got '{self.choice_rule}'")
         if self.choose_by not in CHOOSE_BY:
             raise OptionError(f"--choose-by must be one of {', '.join(CHOOSE_BY)}, "
                               f"got '{self.choose_by}'")
@@ -148,6 +160,86 @@ def _summary(scores: pd.DataFrame, metrics: Sequence[str],
                 if len(part):
                     entry[f"{metric}@{mask}"] = float(part.mean())
         out[str(method)] = entry
+    return out
+
+
+def _choice_words(options: ScoreOptions) -> str:
+    words = _CHOICE_WORDS[options.choose_by]
+    if options.choice_rule == "table":
+        return (f"the method with the lowest mean {words} over all columns of a kind, "
+                "unless another beats it on a column by more than two standard errors of "
+                "their paired per-draw differences")
+    return (f"lowest mean {words}; the simplest method within one standard error "
+            + ("of its paired per-draw difference from the best "
+               if options.choice_rule == "paired" else "")
+            + "wins (simplicity: constant < mean, median, mode < knn < chained-linear "
+            "< chained-forest < chained-boosted < blend)")
+
+
+def _metric_for(options: ScoreOptions, metric_kind: str) -> tuple[str, bool]:
+    primary = options.metrics.get(metric_kind, PRIMARY[metric_kind])
+    metric = primary if options.choose_by == "accuracy" else options.choose_by
+    return metric, metric == primary and get_metric(metric).greater_is_better
+
+
+def _table_leaders(survey: Survey, result: ExperimentResult, options: ScoreOptions,
+                   scored: Sequence[str]) -> dict[str, str]:
+    """Per kind of metric, the method with the best mean score over every scored column.
+
+    Only methods that scored every such column compete; the mean is over columns of each
+    column's mean over draws, so every column counts once.
+    """
+    leaders = {}
+    scores = result.scores
+    for metric_kind in ("numeric", "categorical"):
+        names = [n for n in scored
+                 if ("numeric" if survey.columns[n].spec.kind in ("numeric", "datetime")
+                     else "categorical") == metric_kind]
+        metric, greater = _metric_for(options, metric_kind)
+        part = scores[scores["column"].isin(names)]
+        if not names or metric not in part:
+            continue
+        table = part.groupby(["method", "column"])[metric].mean().unstack("column")
+        table = table.reindex(columns=names).dropna()
+        if not len(table):
+            continue
+        means = table.mean(axis=1)
+        leaders[metric_kind] = str(means.idxmax() if greater else means.idxmin())
+    return leaders
+
+
+def _table_choice(rows: pd.DataFrame, metric: str, usable: dict[str, tuple[float, float]],
+                  greater: bool, leader: str) -> tuple[str, str]:
+    """The table's leading method, unless one beats it here by two paired SEs."""
+    sign = -1.0 if greater else 1.0
+    best = min(usable, key=lambda m: sign * usable[m][0])
+    text = f"{leader} has the best mean {metric} over the table's columns"
+    if best == leader:
+        return leader, f"{text} and on this one ({usable[leader][0]:.4g})"
+    se = _paired_se(rows, metric, usable, greater, against=best)[leader]
+    gap = sign * (usable[leader][0] - usable[best][0])
+    if gap > 2 * se:
+        return best, (f"{best} beats the table's leader {leader} on this column by "
+                      f"{gap:.3g} {metric}, more than two paired standard errors ({se:.2g})")
+    return leader, (f"{text}; {best} is ahead here by {gap:.3g}, within two paired standard "
+                    f"errors ({se:.2g}), so the leader is kept")
+
+
+def _paired_se(rows: pd.DataFrame, metric: str, usable: dict[str, tuple[float, float]],
+               greater: bool, against: str | None = None) -> dict[str, float]:
+    """SE of each method's per-draw difference from the best method, on common draws."""
+    sign = -1.0 if greater else 1.0
+    best = against or min(usable, key=lambda m: sign * usable[m][0])
+    table = rows.pivot_table(index=["mask", "repeat"], columns="method", values=metric,
+                             aggfunc="mean")
+    out = {}
+    for method in usable:
+        if method not in table or best not in table:
+            out[method] = 0.0
+            continue
+        diff = (table[method] - table[best]).to_numpy(float)
+        diff = diff[np.isfinite(diff)]
+        out[method] = float(diff.std(ddof=1) / math.sqrt(len(diff))) if len(diff) > 1 else 0.0
     return out
 
 
@@ -183,6 +275,9 @@ def plan_from_experiment(
     simplicity = {m: METHODS[m].simplicity for m in methods}
     columns: dict[str, ColumnPlan] = {}
     target = options.survey.target
+    leaders = (_table_leaders(survey, result, options, scored)
+               if options.choice_rule == "table" and result is not None and len(result.scores)
+               else {})
     for name, col in survey.columns.items():
         kind = col.spec.kind
         action = actions[name]
@@ -219,8 +314,15 @@ def plan_from_experiment(
                 columns[name] = plan
                 continue
             greater = metric == primary and get_metric(metric).greater_is_better
-            chosen, why = choose_method(usable, simplicity, metric=metric,
-                                        greater_is_better=greater, order=methods)
+            leader = leaders.get(metric_kind)
+            if leader is not None and leader in usable:
+                chosen, why = _table_choice(rows, metric, usable, greater, leader)
+            else:
+                paired = (_paired_se(rows, metric, usable, greater)
+                          if options.choice_rule != "unpaired" else None)
+                chosen, why = choose_method(usable, simplicity, metric=metric,
+                                            greater_is_better=greater, order=methods,
+                                            paired_se=paired)
             why += _distribution_note(summary, chosen, metric_kind)
             plan.method = chosen
             draws = summary[chosen]["draws"]
@@ -236,6 +338,11 @@ def plan_from_experiment(
             plan.method, plan.reason = _fallback(kind, survey.typed[name])
         if plan.method is not None:
             plan.params = _public_params(plan.method)
+        if plan.method == "blend" and result is not None and result.blend:
+            plan.params.update(weights=dict(result.blend["weights"]),
+                               label_method=result.blend["label_method"])
+            weights = ", ".join(f"{m} {w:.2f}" for m, w in result.blend["weights"].items())
+            plan.reason += f"; blend weights (fitted on every draw's hidden cells): {weights}"
         plan.evidence = dict(col.evidence)
         if action == "impute":
             _apply_evidence(plan, col, survey.typed[name])
@@ -259,9 +366,8 @@ def plan_from_experiment(
         "methods": methods,
         "metrics": dict(options.metrics),
         "choose_by": options.choose_by,
-        "choice": f"lowest mean {_CHOICE_WORDS[options.choose_by]}; the simplest method "
-                  "within one standard error wins (simplicity: constant < mean, median, mode "
-                  "< knn < chained-linear < chained-forest < chained-boosted)",
+        "choice": _choice_words(options),
+        "choice_rule": options.choice_rule,
         "drop_threshold": options.survey.drop_threshold,
         "sample": options.sample,
         "experiment_rows": sample_rows,
@@ -404,6 +510,9 @@ def _downstream(plan: Plan, survey: Survey, encoding: Encoding, targets: list[st
         return
     features = encoding.encode(survey.typed).drop(columns=[target], errors="ignore")
     methods = list(options.methods or get_method_names())
+    if "blend" in methods and all(m in methods for m in COMPONENTS):
+        # Its components are there; per fold it would refit all three twice for its weights.
+        methods.remove("blend")
     result = run_target_experiment(
         features, {n: encoding.kinds[n] for n in features.columns}, targets,
         survey.typed[target], kind, methods=methods, n_splits=options.downstream_folds,

@@ -38,6 +38,10 @@ LIGHT = {
     "chained-linear": {"n_sweeps": 2},
     "chained-forest": {"n_sweeps": 2, "n_trees": 15},
     "chained-boosted": {"max_trees": 60},
+    # given weights: the contract runs without the selection fits (tests/test_blend.py
+    # covers those)
+    "blend": {"weights": {"chained-linear": 0.5, "chained-forest": 0.25,
+                          "chained-boosted": 0.25}},
 }
 
 # ------------------------------------------------------------------------------- helpers

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import typer
 
+from imputelab.cli.bench import bench
 from imputelab.cli.demo import demo
 from imputelab.cli.fill import fill
 from imputelab.cli.fit import fit
@@ -31,6 +32,7 @@ app.command()(fill)
 app.command()(fit)
 app.command()(report)
 app.command()(demo)
+app.command()(bench)
 
 
 def main() -> None:

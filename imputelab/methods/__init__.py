@@ -10,6 +10,7 @@ from typing import Any
 
 from imputelab.errors import OptionError
 from imputelab.methods.base import FillMethod
+from imputelab.methods.blend import BlendFill
 from imputelab.methods.chained import ChainedBoostedFill, ChainedForestFill, ChainedLinearFill
 from imputelab.methods.knn import KNNFill
 from imputelab.methods.simple import ConstantFill, MeanFill, MedianFill, ModeFill
@@ -25,6 +26,7 @@ METHODS: dict[str, type[FillMethod]] = {
     "chained-linear": ChainedLinearFill,
     "chained-forest": ChainedForestFill,
     "chained-boosted": ChainedBoostedFill,
+    "blend": BlendFill,
 }
 
 
