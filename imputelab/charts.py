@@ -256,6 +256,7 @@ def method_scores(
     chosen: str | None = None,
     by_mask: Mapping[str, Mapping[str, float]] | None = None,
     spread: str = "1 SE",
+    bound: bool = True,
 ) -> Figure:
     """Every method's mean score for one column, with error bars; the chosen one marked.
 
@@ -274,12 +275,15 @@ def method_scores(
         ``{method: {mask: mean}}``: drawn as one marker shape per mask.
     spread : str
         What the error bars are (legend text).
+    bound : bool
+        Draw the best mean's one-SE bound (the line the unpaired one-SE rule chooses by);
+        off for rules that judge by paired differences, which this chart does not show.
 
     Returns
     -------
     Figure
         One bar per method; an error-bar container; one marker series per mask; a line for
-        the best mean's one-SE bound when error bars are given.
+        the best mean's one-SE bound when error bars are given and ``bound``.
     """
     names = list(means)
     values = np.array([float(means[m]) for m in names])
@@ -302,6 +306,7 @@ def method_scores(
             bars_err = ax.errorbar(values, y, xerr=err, fmt="none", ecolor=INK, elinewidth=1.0,
                                    capsize=3, label=f"± {spread}")
             handles.append(bars_err)
+        if err.any() and bound:
             best = int(np.argmax(values) if greater_is_better else np.argmin(values))
             bound = values[best] - err[best] if greater_is_better else values[best] + err[best]
             line = ax.axvline(bound, color=INK, linestyle=(0, (1, 2)), linewidth=1.1,

@@ -320,12 +320,16 @@ def _greater_is_better(metric: str) -> bool:
 def _section_experiment(facts: _Facts) -> str:
     plan, charts, settings = facts.plan, facts.charts, facts.plan.settings
     masks = list(settings.get("masks", []))
+    # Plans written before the choice rules had names used the unpaired one-SE rule.
+    one_se_bound = settings.get("choice_rule", "unpaired") == "unpaired"
     out = [f"<p>For every column to fill, known cells were hidden ({e(', '.join(masks))}; "
            f"{_pct(float(settings.get('rate', 0)))} of the observed cells per draw, "
            f"{e(settings.get('repeats', ''))} draw(s) per mask), filled by every candidate "
            "method, and compared with the values that had been hidden. The bars are the mean "
            "score over every draw, the error bars one standard error of that mean, the "
-           "markers the mean under each mask. Rule: "
+           "markers the mean under each mask"
+           + (", the dotted line one standard error from the best mean" if one_se_bound
+              else "") + ". Rule: "
            f"{e(settings.get('choice', ''))}.</p>"]
     scored = [n for n, c in plan.columns.items() if c.scores and c.action == "impute"]
     for name in scored:
@@ -343,7 +347,8 @@ def _section_experiment(facts: _Facts) -> str:
                    for m, s in entries.items()}
         greater = _greater_is_better(metric)
         fig = charts.method_scores(means, errors, column=name, metric=metric,
-                                   greater_is_better=greater, chosen=chosen, by_mask=by_mask)
+                                   greater_is_better=greater, chosen=chosen, by_mask=by_mask,
+                                   bound=one_se_bound)
         best = (max if greater else min)(means, key=means.get)
         alt = (f"{name}: {metric} of {len(means)} methods; best mean {best} "
                f"({means[best]:.3g}); chosen {col.method}.")

@@ -88,6 +88,17 @@ def test_method_scores_marks_the_chosen_method_and_draws_error_bars_and_masks():
     assert "chosen" in legend_texts(fig)
 
 
+def test_method_scores_leaves_out_the_one_se_bound_for_paired_rules():
+    # The table and paired rules judge by paired differences: a bound drawn from the unpaired
+    # standard error would suggest a rule the plan did not use.
+    fig = charts.method_scores({"mean": 0.9, "knn": 0.6}, {"mean": 0.01, "knn": 0.02},
+                               column="fuel_l", metric="nrmse", chosen="mean", bound=False)
+    ax = labelled(fig)
+    assert sum(isinstance(c, ErrorbarContainer) for c in ax.containers) == 1
+    assert not [line for line in ax.get_lines() if line.get_label().startswith("best")]
+    assert not [t for t in legend_texts(fig) if t.startswith("best")]
+
+
 def test_method_scores_without_spread_or_winner_draws_bars_only():
     fig = charts.method_scores({"mean": 0.5, "mode": 0.6}, {"mean": 0.0, "mode": None},
                                column="x", metric="macro_f1", greater_is_better=True)
