@@ -19,9 +19,9 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from joblib import Parallel, delayed
 from threadpoolctl import threadpool_limits
 
+from imputelab.cluster import Executor, JoblibExecutor
 from imputelab.encoding import is_categorical, with_derived
 from imputelab.masks import get_mask
 from imputelab.methods import get_method
@@ -121,6 +121,24 @@ def _score_task(
     return rows_out, seconds, None
 
 
+@dataclass(frozen=True)
+class _Shared:
+    """The inputs every grid task reads."""
+
+    working: pd.DataFrame
+    kinds: Mapping[str, str]
+    columns: Sequence[str]
+    scales: Mapping[str, float]
+    draws: Mapping[tuple[str, int], np.ndarray]  # hidden cells per (mask, repeat)
+
+
+def _grid_task(shared: _Shared, mask_name: str, repeat: int, method: str,
+               params: Mapping[str, Any], targets: Sequence[str], seed: int
+               ) -> tuple[list[dict[str, Any]], float, str | None]:
+    return _score_task(shared.working, shared.kinds, shared.draws[mask_name, repeat],
+                       shared.columns, shared.scales, method, params, targets, seed)
+
+
 def _distribution_checks(working: pd.DataFrame, filled: pd.DataFrame, name: str,
                          numeric: Sequence[str], cells: np.ndarray) -> dict[str, float]:
     """Variance ratio on the hidden cells, correlation shift over the whole column."""
@@ -149,6 +167,7 @@ def run_experiment(
     dtypes: Mapping[str, Any] | None = None,
     n_jobs: int = 1,
     progress: Callable[[int, int], None] | None = None,
+    executor: Executor | None = None,
 ) -> ExperimentResult:
     """Score every method on every column under every mask.
 
@@ -176,6 +195,9 @@ def run_experiment(
         Parallel tasks (joblib); BLAS and LightGBM run one thread per task.
     progress : callable, optional
         Called as ``progress(done, total)`` after each task.
+    executor : Executor, optional
+        Where the tasks run (:mod:`imputelab.cluster`), e.g. a Dask cluster; by default
+        ``n_jobs`` local processes. The scores do not depend on it.
 
     Returns
     -------
@@ -213,26 +235,23 @@ def run_experiment(
                 hidden_counts[mask_name] = {c: int(hidden[:, j].sum())
                                             for j, c in enumerate(columns)}
     tasks = [
-        (mask_name, repeat, hidden, method)
-        for mask_name, repeat, hidden in draws
+        (mask_name, repeat, method, methods[method], targets[method],
+         derive_seed(seed, mask_name, repeat, method))
+        for mask_name, repeat, _ in draws
         for method in methods
         if targets[method]
     ]
-    jobs = (
-        delayed(_score_task)(working, kinds, hidden, columns, scales, method, methods[method],
-                             targets[method], derive_seed(seed, mask_name, repeat, method))
-        for mask_name, repeat, hidden, method in tasks
-    )
-    if n_jobs == 1:
-        results = (job[0](*job[1], **job[2]) for job in jobs)
-    else:
-        results = Parallel(n_jobs=n_jobs, return_as="generator")(jobs)
+    # What every task reads goes out once (scattered to a cluster's workers), not per task.
+    shared = _Shared(working, kinds, columns, scales,
+                     {(mask_name, repeat): hidden for mask_name, repeat, hidden in draws})
+    if executor is None:
+        executor = JoblibExecutor(n_jobs)
+    results = executor.map(_grid_task, shared, tasks, progress)
     records: list[dict[str, Any]] = []
     seconds = dict.fromkeys(methods, 0.0)
     failures = []
-    for done, ((mask_name, repeat, _, method), (rows, spent, error)) in enumerate(
-        zip(tasks, results, strict=True), start=1
-    ):
+    for (mask_name, repeat, method, *_), (rows, spent, error) in zip(tasks, results,
+                                                                     strict=True):
         seconds[method] += spent
         if error:
             failures.append({"method": method, "mask": mask_name, "repeat": repeat,
@@ -240,8 +259,6 @@ def run_experiment(
         for row in rows:
             row.update(mask=mask_name, repeat=repeat)
             records.append(row)
-        if progress is not None:
-            progress(done, len(tasks))
     scores = pd.DataFrame.from_records(records)
     if len(scores):
         front = ["column", "method", "mask", "repeat", "n_hidden"]
