@@ -28,6 +28,7 @@ import contextlib
 import logging
 import os
 import socket
+import warnings
 from collections.abc import Callable, Iterator, Sequence
 from typing import Any, Protocol
 
@@ -177,9 +178,13 @@ def local_cluster(n_workers: int) -> Any:
     """
     from distributed import LocalCluster
 
-    return LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True,
-                        host="127.0.0.1", dashboard_address=None,
-                        silence_logs=logging.ERROR)
+    with warnings.catch_warnings():
+        # Without a dashboard the scheduler still serves a small HTTP API (on 127.0.0.1);
+        # another cluster holding its usual port is no news for the user.
+        warnings.filterwarnings("ignore", message="Port .* is already in use")
+        return LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True,
+                            host="127.0.0.1", dashboard_address=None,
+                            silence_logs=logging.ERROR)
 
 
 def _connect(address: str, timeout: float) -> Any:
