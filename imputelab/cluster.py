@@ -46,6 +46,7 @@ __all__ = [
     "local_cluster",
     "open_executor",
     "parse_cluster",
+    "worker_result",
 ]
 
 #: Seconds to wait for a scheduler to answer before ``--cluster ADDRESS`` is an error.
@@ -134,7 +135,7 @@ class DaskExecutor:
         following = 0
         try:
             for done, future in enumerate(as_completed(futures), start=1):
-                ready[index[future.key]] = future.result()
+                ready[index[future.key]] = worker_result(future)
                 if progress is not None:
                     progress(done, len(tasks))
                 while following in ready:
@@ -144,6 +145,15 @@ class DaskExecutor:
             for future in futures:
                 future.release()
             data.release()
+
+
+def worker_result(future: Any) -> Any:
+    """A finished task's result; a worker without imputelab is the user's set-up to fix."""
+    try:
+        return future.result()
+    except ImportError as exc:
+        raise OptionError(f"--cluster: a worker cannot import what the task needs ({exc}); "
+                          "install the same imputelab version on every worker") from None
 
 
 def parse_cluster(text: str) -> tuple[str, int | str]:

@@ -39,6 +39,7 @@ import pyarrow as pa
 import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
 
+from imputelab.cluster import worker_result
 from imputelab.errors import DataError, OptionError, TableIOError
 from imputelab.fill import FillReport, FittedFill, _specs, check_plan, finish_output
 from imputelab.io import Table, _short_reason
@@ -303,7 +304,13 @@ def cluster_fill(
         futures = client.compute(reports.to_delayed())
         found: dict[str, Any] = {}
         for done, future in enumerate(as_completed(futures), start=1):
-            found[future.key] = future.result()
+            try:
+                found[future.key] = worker_result(future)
+            except OSError as exc:
+                raise TableIOError(
+                    f"a worker could not read {option} '{path}' or write '{out_dir}' "
+                    f"({_short_reason(exc)}); every worker must see both paths (one machine "
+                    "or a shared file system)") from None
             if progress is not None:
                 progress(done, len(futures))
         parts = [json.loads(found[f.key]["report"].iloc[0]) for f in futures]

@@ -25,6 +25,7 @@ from imputelab.cluster import (
     SerialExecutor,
     local_cluster,
     parse_cluster,
+    worker_result,
 )
 from imputelab.cluster_fill import _csv_pieces, _read_piece, cluster_fill
 from imputelab.demo import make_trip_log, write_trip_log
@@ -202,3 +203,26 @@ def test_parse_cluster_reads_local_and_addresses():
     assert parse_cluster("local:3") == ("local", 3)
     assert parse_cluster("scheduler:8786") == ("address", "tcp://scheduler:8786")
     assert parse_cluster("tls://10.0.0.1:8786") == ("address", "tls://10.0.0.1:8786")
+
+
+def test_fill_cluster_options_that_cannot_work_are_refused_before_any_start(trips, tmp_path):
+    path, plan = trips
+    plan.save(tmp_path / "plan.json")
+    folder = tmp_path / "folder"
+    folder.mkdir()
+    for args, message in (
+            ([path, "--out", tmp_path / "o.csv"], "folder of Parquet files"),
+            ([folder, "--out", tmp_path / "o"], "is a folder: fit the plan once"),
+            ([path, "--out", tmp_path / "o", "--draws", 2], "does not go with --draws")):
+        result = invoke("fill", *args, "--plan", tmp_path / "plan.json", "--cluster", "local:2")
+        assert result.exit_code == 2, result.stderr
+        assert message in result.stderr and "Traceback" not in result.stderr
+
+
+def test_a_worker_that_cannot_import_imputelab_is_a_set_up_error():
+    class Lost:
+        def result(self):
+            raise ModuleNotFoundError("No module named 'imputelab'")
+
+    with pytest.raises(OptionError, match="install the same imputelab version"):
+        worker_result(Lost())
