@@ -208,13 +208,14 @@ def _connect(address: str, timeout: float) -> Any:
         try:
             socket.create_connection((host.strip("[]"), int(port)), timeout=timeout).close()
         except OSError as exc:
-            reason = exc.strerror or type(exc).__name__
+            reason = (f"nothing within {timeout:g} s" if isinstance(exc, TimeoutError)
+                      else exc.strerror or type(exc).__name__)
             raise OptionError(f"--cluster '{address}': no scheduler answered ({reason}); "
                               f"start one (dask scheduler) or check the address, or use "
                               "local:N") from None
     try:
         return Client(address, timeout=timeout)
-    except (OSError, TimeoutError, ValueError) as exc:
+    except Exception as exc:  # refused, timed out, or something that is no Dask scheduler
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
         raise OptionError(f"--cluster '{address}': could not connect to a Dask scheduler "
                           f"({first}); check the address, or use local:N") from None
