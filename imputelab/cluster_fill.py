@@ -296,6 +296,9 @@ def cluster_fill(
     framer = _Framer("csv" if Path(path).suffix.lower() == ".csv" else "parquet", columns)
     job = _Job(fitted, plan, framer, Path(path), delimiter, decimal, "parquet", _specs(plan))
     tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", suffix=".part", dir=parent))
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o777 & ~umask)  # mkdtemp makes an owner-only folder; outputs follow the umask
     try:
         [shipped] = client.scatter([job], broadcast=True, hash=False)
         reports = frame.map_partitions(_fill_partition, shipped, str(tmp),

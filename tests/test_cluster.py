@@ -119,6 +119,9 @@ def test_a_csv_filled_on_the_cluster_has_the_single_machine_values(trips, client
     _, memory = fill_table(read_table(path), plan, text_output=False)
     assert report.filled == memory.filled and sum(report.filled.values()) > 0
     assert not list(tmp_path.glob(".out.*"))  # the temporary folder is gone
+    umask = os.umask(0)
+    os.umask(umask)
+    assert (tmp_path / "out").stat().st_mode & 0o777 == 0o777 & ~umask  # not owner-only
 
 
 def test_a_parquet_folder_filled_on_the_cluster_is_its_concatenation_filled(
