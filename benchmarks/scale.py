@@ -11,6 +11,8 @@ measured in the same process:
     python benchmarks/scale.py --rounds 3       # on a busy machine: best of 3, interleaved
 
 Target (issue: outgrow one machine): 2 jobs at least 1.7x faster than 1 job on 2 cores.
+Beside it, the script measures what the machine can give at that moment: the speed-up of a
+pure-Python loop run in 2 processes (2.0x on an idle 2-core machine), before and after.
 
 It then projects the experiment's cost for a 200-column table from the measured time of each
 method's tasks (printed with the formula; see ``project``).
@@ -24,6 +26,7 @@ import os
 import platform
 import tempfile
 import time
+from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 
 from imputelab.cluster import open_executor
@@ -39,6 +42,28 @@ CODES = {"driver_rating": [99]}
 # (p); a chained method fits one model per column on all the other columns (p x p).
 EXPONENT = {"constant": 1, "mean": 1, "median": 1, "mode": 1, "knn": 1,
             "chained-linear": 2, "chained-forest": 2, "chained-boosted": 2}
+
+
+def _spin(_: int) -> int:
+    total = 0
+    for i in range(15_000_000):
+        total += i * i
+    return total
+
+
+def cpu_reference(workers: int) -> float:
+    """Speed-up the machine gives right now: a pure-Python loop, once vs ``workers`` copies
+    side by side in as many processes (about ``workers`` on an idle machine; less when other
+    work holds cores)."""
+    start = time.perf_counter()
+    _spin(0)
+    one = time.perf_counter() - start
+    with ProcessPoolExecutor(workers) as pool:
+        list(pool.map(_spin, range(workers)))  # start the processes
+        start = time.perf_counter()
+        list(pool.map(_spin, range(workers)))
+        many = time.perf_counter() - start
+    return workers * one / many
 
 
 def timed_score(path: Path, jobs: int, cluster: str | None) -> dict:
@@ -87,11 +112,13 @@ def main() -> None:
         ways = {"1 job": (1, None), f"{n} jobs": (n, None),
                 f"--cluster local:{n}": (n, f"local:{n}")}
         runs: dict[str, dict] = {}
+        free = [cpu_reference(n)]
         for _ in range(args.rounds):  # interleaved, so that a busy spell hits every way
             for name, (jobs, cluster) in ways.items():
                 run = timed_score(path, jobs, cluster)
                 if name not in runs or run["seconds"] < runs[name]["seconds"]:
                     runs[name] = run
+        free.append(cpu_reference(n))
     base = runs["1 job"]
     same = all(r["plan"] == base["plan"] for r in runs.values())
     print(f"score of the demo trip log, {args.rows:,} rows x 12 columns "
@@ -104,6 +131,9 @@ def main() -> None:
     ratio = base["seconds"] / runs[f"{n} jobs"]["seconds"]
     print(f"target: {n} jobs >= 1.7x faster than 1 job: {'met' if ratio >= 1.7 else 'MISSED'} "
           f"({ratio:.2f}x)")
+    print(f"reference, same run: a pure-Python loop in {n} processes ran "
+          f"{free[0]:.2f}x (before) and {free[-1]:.2f}x (after) as fast as in one; "
+          f"below {n}x, other work held cores")
     print("\nseconds per task (1 job) and projection to "
           f"{args.project_columns} columns (same rows):")
     for method, seconds in base["task_seconds"].items():
