@@ -595,30 +595,22 @@ def results_markdown(results: Mapping[str, Any], command: str = "") -> str:
 
 
 def _plot(results: Mapping[str, Any], path: Path) -> None:
-    import matplotlib
+    import imputelab.charts as charts  # matplotlib loads only when a plot is drawn
 
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    cells = [(f"{n}\n{m}", s) for n, e in results["datasets"].items()
+    cells = [(f"{n} {m}", s) for n, e in results["datasets"].items()
              for m, s in e["masks"].items()]
     shown = [PLAN, "blend", "chained-linear", "chained-forest", "chained-boosted", "knn",
              *REFERENCES]
-    fig, ax = plt.subplots(figsize=(max(6, 1.1 * len(cells)), 4.5))
-    width = 0.8 / len(shown)
-    for k, method in enumerate(shown):
-        ratios = [s["methods"].get(method, {}).get("nrmse_ratio", np.nan) for _, s in cells]
-        ax.bar(np.arange(len(cells)) + k * width, ratios, width, label=method)
-    ax.axhline(1.0, color="black", linewidth=0.8)
-    ax.set_xticks(np.arange(len(cells)) + 0.4 - width / 2, [c for c, _ in cells], fontsize=7)
-    ax.set_ylabel("NRMSE / best scikit-learn reference")
-    ax.set_ylim(0.8, 1.3)
-    ax.legend(fontsize=7, ncol=4)
-    ax.set_title("Error relative to the best scikit-learn imputer (lower is better)")
-    fig.tight_layout()
+    series = {method: [s["methods"].get(method, {}).get("nrmse_ratio", np.nan)
+                       for _, s in cells] for method in shown}
+    fig = charts.ratio_bars([c for c, _ in cells], series,
+                            ylabel="NRMSE / best scikit-learn reference",
+                            title="Error relative to the best scikit-learn imputer "
+                                  "(lower is better)")
+    svg = charts.figure_svg(fig, alt="NRMSE of each method divided by the best scikit-learn "
+                                     "reference, per dataset and mask.", prefix="bench")
     with atomic_path(path) as tmp:
-        fig.savefig(tmp, format="svg")
-    plt.close(fig)
+        Path(tmp).write_text(svg, encoding="utf-8")
 
 
 def plain_data(value: Any) -> Any:

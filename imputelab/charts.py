@@ -465,6 +465,48 @@ def predictability_dots(checks: Mapping[str, tuple[float, float, float]]) -> Fig
 
 # ------------------------------------------------------------------------------------- to SVG
 
+def ratio_bars(groups: Sequence[str], series: Mapping[str, Sequence[float]], *,
+               ylabel: str, title: str) -> Figure:
+    """Grouped bars of ratios to a reference, with the reference drawn at 1.
+
+    Parameters
+    ----------
+    groups : sequence of str
+        One group of bars per entry (e.g. ``"wine mcar"``).
+    series : mapping
+        ``{name: one ratio per group}``; NaN leaves a gap. Series are told apart by colour
+        and by hatch, so the chart reads in black and white too.
+    ylabel, title : str
+
+    Returns
+    -------
+    Figure
+        One bar per (series, group), one line at 1.
+    """
+    colours = list(PALETTE.values())
+    hatches = ("", "//", "..", "xx", "\\\\", "++", "oo", "--")
+    names = list(series)
+    width = 0.8 / max(len(names), 1)
+    x = np.arange(len(groups))
+    with _style():
+        fig = _figure(height=4.2, width=max(WIDTH, 0.9 * len(groups)))
+        ax = fig.add_subplot()
+        handles = []
+        for k, name in enumerate(names):
+            handles.append(ax.bar(x + k * width, np.asarray(series[name], float), width, label=name,
+                   color=colours[k % len(colours)], edgecolor=INK, linewidth=0.4,
+                   hatch=hatches[(k // len(colours) + k) % len(hatches)]))
+        handles.append(ax.axhline(1.0, color=INK, linewidth=0.9, label="reference = 1"))
+        ax.set_xticks(x + 0.4 - width / 2, list(groups), fontsize=7, rotation=30, ha="right")
+        ax.grid(axis="y")
+        ax.set_axisbelow(True)
+        ax.set_xlabel("dataset and mask")
+        ax.set_ylabel(ylabel)
+        ax.set_title(title)
+        _legend(fig, handles)
+    return fig
+
+
 _ID = re.compile(r'\sid="([^"]+)"')
 _REF = re.compile(r'(url\(#|href="#)([^)"]+)')
 

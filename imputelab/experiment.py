@@ -19,9 +19,9 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from joblib import Parallel, delayed
 from threadpoolctl import threadpool_limits
 
+from imputelab.cluster import Executor, JoblibExecutor
 from imputelab.encoding import is_categorical, with_derived
 from imputelab.masks import get_mask
 from imputelab.methods import get_method
@@ -161,6 +161,24 @@ def _score_filled(working: pd.DataFrame, filled: pd.DataFrame, hidden: np.ndarra
     return rows_out
 
 
+@dataclass(frozen=True)
+class _Shared:
+    """The inputs every grid task reads."""
+
+    working: pd.DataFrame
+    kinds: Mapping[str, str]
+    columns: Sequence[str]
+    scales: Mapping[str, float]
+    draws: Mapping[tuple[str, int], np.ndarray]  # hidden cells per (mask, repeat)
+
+
+def _grid_task(shared: _Shared, mask_name: str, repeat: int, method: str,
+               params: Mapping[str, Any], targets: Sequence[str], seed: int, keep: bool
+               ) -> tuple[list[dict[str, Any]], float, str | None, dict[str, np.ndarray] | None]:
+    return _score_task(shared.working, shared.kinds, shared.draws[mask_name, repeat],
+                       shared.columns, shared.scales, method, params, targets, seed, keep)
+
+
 def _distribution_checks(working: pd.DataFrame, filled: pd.DataFrame, name: str,
                          numeric: Sequence[str], cells: np.ndarray) -> dict[str, float]:
     """Variance ratio on the hidden cells, correlation shift over the whole column."""
@@ -190,6 +208,7 @@ def run_experiment(
     n_jobs: int = 1,
     progress: Callable[[int, int], None] | None = None,
     keep_fills: bool = False,
+    executor: Executor | None = None,
 ) -> ExperimentResult:
     """Score every method on every column under every mask.
 
@@ -219,6 +238,9 @@ def run_experiment(
         Called as ``progress(done, total)`` after each task.
     keep_fills : bool
         Keep every method's fills (:attr:`ExperimentResult.fills`).
+    executor : Executor, optional
+        Where the tasks run (:mod:`imputelab.cluster`), e.g. a Dask cluster; by default
+        ``n_jobs`` local processes. The scores do not depend on it.
 
     Returns
     -------
@@ -257,29 +279,25 @@ def run_experiment(
     crossfit = "blend" in methods and all(m in methods for m in COMPONENTS)
     keep = set(methods) if keep_fills else set(COMPONENTS) if crossfit else set()
     tasks = [
-        (mask_name, repeat, hidden, method)
-        for mask_name, repeat, hidden in draws
+        (mask_name, repeat, method, methods[method], targets[method],
+         derive_seed(seed, mask_name, repeat, method), method in keep)
+        for mask_name, repeat, _ in draws
         for method in methods
         if targets[method] and not (crossfit and method == "blend")
     ]
-    jobs = (
-        delayed(_score_task)(working, kinds, hidden, columns, scales, method, methods[method],
-                             targets[method], derive_seed(seed, mask_name, repeat, method),
-                             method in keep)
-        for mask_name, repeat, hidden, method in tasks
-    )
-    if n_jobs == 1:
-        results = (job[0](*job[1], **job[2]) for job in jobs)
-    else:
-        results = Parallel(n_jobs=n_jobs, return_as="generator")(jobs)
+    # What every task reads goes out once (scattered to a cluster's workers), not per task.
+    shared = _Shared(working, kinds, columns, scales,
+                     {(mask_name, repeat): hidden for mask_name, repeat, hidden in draws})
+    if executor is None:
+        executor = JoblibExecutor(n_jobs)
+    results = executor.map(_grid_task, shared, tasks, progress)
     records: list[dict[str, Any]] = []
     seconds = dict.fromkeys(methods, 0.0)
     task_seconds: dict[tuple[str, int, str], float] = {}
     fills: dict[tuple[str, int], dict[str, dict[str, np.ndarray]]] = {}
     failures = []
-    for done, ((mask_name, repeat, _, method), (rows, spent, error, kept)) in enumerate(
-        zip(tasks, results, strict=True), start=1
-    ):
+    for (mask_name, repeat, method, *_), (rows, spent, error, kept) in zip(tasks, results,
+                                                                            strict=True):
         seconds[method] += spent
         task_seconds[(mask_name, repeat, method)] = spent
         if error:
@@ -290,8 +308,6 @@ def run_experiment(
         for row in rows:
             row.update(mask=mask_name, repeat=repeat)
             records.append(row)
-        if progress is not None:
-            progress(done, len(tasks))
     blend: dict[str, Any] = {}
     if crossfit and targets["blend"]:
         blend = _crossfit_blend(working, columns, scales, draws, fills, targets["blend"])

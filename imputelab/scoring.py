@@ -11,6 +11,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from imputelab.cluster import Executor
 from imputelab.diagnostics import ABSENT_LABEL
 from imputelab.encoding import Encoding
 from imputelab.errors import OptionError
@@ -449,6 +450,7 @@ def score_table(
     options: ScoreOptions | None = None,
     *,
     progress: Callable[[int, int], None] | None = None,
+    executor: Executor | None = None,
 ) -> tuple[Plan, Survey, ExperimentResult | None]:
     """Survey a table, run the experiment and choose a method per column.
 
@@ -458,6 +460,10 @@ def score_table(
     options : ScoreOptions, optional
     progress : callable, optional
         ``progress(done, total)`` after each experiment task.
+    executor : Executor, optional
+        Where the experiment's tasks run (:mod:`imputelab.cluster`, e.g. a Dask cluster);
+        by default ``options.n_jobs`` local processes. The plan does not depend on it. The
+        survey's checks and the model experiment run here, with ``options.n_jobs``.
 
     Returns
     -------
@@ -491,6 +497,7 @@ def score_table(
             working, encoding.kinds, scored, methods=methods, masks=options.masks,
             rate=options.rate, repeats=options.repeats, seed=options.seed,
             dtypes=dict(survey.typed.dtypes), n_jobs=options.n_jobs, progress=progress,
+            executor=executor,
         )
     plan = plan_from_experiment(survey, result, options, actions=actions, scored=scored,
                                 sample_rows=len(working))

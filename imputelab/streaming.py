@@ -276,6 +276,21 @@ def _blank_row(row: Any) -> str:
     return "skip" if row.text.strip(" \t\r\n") == "" else "error"
 
 
+def csv_options(n_columns: int, delimiter: str) -> dict[str, Any]:
+    """Arrow's CSV options that read rows as read_table does: every cell as text."""
+    names = [f"c{i}" for i in range(n_columns)]
+    return {
+        "read_options": pacsv.ReadOptions(column_names=names, block_size=_BLOCK_BYTES),
+        "parse_options": pacsv.ParseOptions(
+            delimiter=delimiter, quote_char='"', double_quote=True, escape_char=False,
+            newlines_in_values=True, ignore_empty_lines=n_columns > 1,
+            invalid_row_handler=_blank_row if n_columns > 1 else None),
+        "convert_options": pacsv.ConvertOptions(
+            column_types=dict.fromkeys(names, pa.string()), null_values=[],
+            strings_can_be_null=False, quoted_strings_can_be_null=False),
+    }
+
+
 class _CsvChunks:
     """A CSV file's rows as read_table's text frames, chunk by chunk."""
 
@@ -306,22 +321,12 @@ class _CsvChunks:
             with open(layout.path, "rb") as handle:
                 self.digest.update(handle.read(layout.start))
         if layout.stop > layout.start:
-            names = [f"c{i}" for i in range(len(layout.header))]
+            names = range(len(layout.header))
             self.window = _Window(layout.path, layout.start, layout.stop, self.digest)
             reader = None
             try:
-                reader = pacsv.open_csv(
-                    self.window,
-                    read_options=pacsv.ReadOptions(column_names=names, block_size=_BLOCK_BYTES),
-                    parse_options=pacsv.ParseOptions(
-                        delimiter=layout.delimiter, quote_char='"', double_quote=True,
-                        escape_char=False, newlines_in_values=True,
-                        ignore_empty_lines=len(names) > 1,
-                        invalid_row_handler=_blank_row if len(names) > 1 else None),
-                    convert_options=pacsv.ConvertOptions(
-                        column_types=dict.fromkeys(names, pa.string()), null_values=[],
-                        strings_can_be_null=False, quoted_strings_can_be_null=False),
-                )
+                reader = pacsv.open_csv(self.window, **csv_options(len(names),
+                                                                   layout.delimiter))
                 for batch in reader:
                     if batch.num_rows:
                         yield batch
@@ -832,6 +837,15 @@ def _apply_to_holes(fitted: FittedFill, typed: pd.DataFrame, report: FillReport
     return out
 
 
+def fill_chunk(job: _Job, chunk: Table
+               ) -> tuple[pd.DataFrame, pd.DataFrame, FillReport, dict[str, dict[str, int]]]:
+    """A chunk cleaned by the plan, its planned columns filled, its report and new tokens."""
+    typed, tokens = clean_with_plan(chunk, job.plan)
+    planned = [c for c in typed.columns if c in job.plan.columns]
+    part = FillReport()
+    return typed, _apply_to_holes(job.fitted, typed[planned], part), part, tokens
+
+
 def _run_chunk(job: _Job, table: pa.Table, offset: int
                ) -> tuple[list[str], Any, FillReport, dict[str, dict[str, int]]]:
     """One chunk through the steps of fill_table with fit_on: clean, fill, indicators, then
@@ -839,10 +853,7 @@ def _run_chunk(job: _Job, table: pa.Table, offset: int
     chunk = Table(job.framer.frame(table, offset), job.path, job.framer.format,
                   job.delimiter, job.decimal)
     plan = job.plan
-    typed, tokens = clean_with_plan(chunk, plan)
-    planned = [c for c in typed.columns if c in plan.columns]
-    part = FillReport()
-    filled = _apply_to_holes(job.fitted, typed[planned], part)
+    typed, filled, part, tokens = fill_chunk(job, chunk)
     if not job.text_output:
         frame = finish_output(chunk, plan, typed, filled, text_output=False)
         columns = [str(c) for c in frame.columns]

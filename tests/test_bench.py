@@ -58,7 +58,9 @@ def test_tiny_bench_runs_end_to_end(tmp_path) -> None:
     assert methods["sk-iter-forest"]["seconds_ratio"] == pytest.approx(1.0)
     assert BAYES not in methods
     assert (out / "results.md").read_text().startswith("# Benchmark")
-    assert (out / "ratios.svg").read_text().lstrip().startswith("<?xml")
+    svg = (out / "ratios.svg").read_text()
+    assert svg.startswith("<svg") and 'xmlns="http://www.w3.org/2000/svg"' in svg
+    assert "<title>NRMSE of each method" in svg
 
 
 @pytest.mark.parametrize("args, words", [

@@ -161,3 +161,20 @@ def test_figure_svg_is_reproducible_self_contained_and_titled():
         assert ref in ids
     # Namespace declarations name XML vocabularies; nothing else may hold an address.
     assert not re.search(r"https?://", re.sub(r'xmlns(:\w+)?="[^"]*"', "", first))
+
+
+def test_ratio_bars_draws_one_bar_per_series_and_group_and_the_reference_line():
+    groups = ["wine mcar", "wine mar", "gaussian mcar"]
+    series = {"plan": [0.95, 0.97, 1.01], "blend": [0.96, np.nan, 1.0], "sk-simple": [1.4] * 3}
+    fig = charts.ratio_bars(groups, series, ylabel="NRMSE / best reference", title="Ratios")
+    ax = labelled(fig)
+    assert ax.get_ylabel() == "NRMSE / best reference"
+    assert sum(isinstance(c, BarContainer) for c in ax.containers) == 3
+    assert len(ax.patches) == 9  # a NaN is a bar of no height, not a missing bar
+    assert [t.get_text() for t in ax.get_xticklabels()] == groups
+    (line,) = ax.get_lines()
+    assert list(line.get_ydata()) == [1.0, 1.0]
+    # Series differ by hatch as well as colour (no meaning by colour alone).
+    hatches = [c.patches[0].get_hatch() for c in ax.containers]
+    assert len(set(hatches)) == 3
+    assert legend_texts(fig) == ["plan", "blend", "sk-simple", "reference = 1"]

@@ -14,7 +14,7 @@ import imputelab
 PACKAGE = Path(imputelab.__file__).parent
 ENGINE = {"survey", "scoring", "experiment", "plan", "fill", "prepare", "target_experiment",
           "evidence", "transformer", "model", "streaming", "draws", "report", "bench",
-          "cluster"}
+          "cluster", "cluster_fill"}
 LAYER = {"errors": 0, "part": 1, "engine": 2, "cli": 3, "api": 4}
 
 

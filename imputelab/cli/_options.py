@@ -31,6 +31,11 @@ ChecksOpt = Annotated[bool, typer.Option(
     help="Test what the blanks mean: Little's test, patterns, predictability, structural "
          "rules.")]
 JobsOpt = Annotated[int, typer.Option("--jobs", "-j", help="Parallel tasks (0: all cores).")]
+ClusterOpt = Annotated[str | None, typer.Option(
+    "--cluster", metavar="ADDRESS|local:N",
+    help="Run the work on Dask: the address of a running scheduler (tcp://host:8786), or "
+         "local:N to start N worker processes on this machine. The cluster's workers then "
+         "run it instead of the --jobs processes.")]
 JsonOpt = Annotated[bool, typer.Option("--json", help="Print machine-readable JSON on stdout.")]
 QuietOpt = Annotated[bool, typer.Option("--quiet", "-q", help="Print nothing but errors.")]
 

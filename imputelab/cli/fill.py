@@ -18,9 +18,11 @@ from imputelab.cli._common import (
     progress_bar,
 )
 from imputelab.cli._options import FileArg, JsonOpt, QuietOpt
+from imputelab.cluster import open_executor
+from imputelab.cluster_fill import cluster_fill
 from imputelab.draws import write_draws
 from imputelab.errors import OptionError
-from imputelab.fill import FillReport, fill_table
+from imputelab.fill import FillReport, FittedFill, fill_table
 from imputelab.io import read_table, table_format, write_table
 from imputelab.model import fill_with_model, load_model
 from imputelab.plan import Plan
@@ -67,7 +69,12 @@ def fill(
     chunk_rows: Annotated[int, typer.Option(
         "--chunk-rows", help="Rows per chunk when streaming.")] = DEFAULT_CHUNK_ROWS,
     jobs: Annotated[int, typer.Option(
-        "--jobs", "-j", help="Chunks filled in parallel when streaming.")] = 1,
+        "--jobs", "-j", help="Chunks filled in parallel when streaming (0: all cores).")] = 1,
+    cluster: Annotated[str | None, typer.Option(
+        "--cluster", metavar="ADDRESS|local:N",
+        help="Fill on Dask: the address of a running scheduler (tcp://host:8786) or local:N "
+             "(N worker processes here). FILE may then be a folder of .parquet files; --out "
+             "is a new folder of Parquet files. Every worker must see both paths.")] = None,
     draws: Annotated[int, typer.Option(
         "--draws", metavar="M",
         help="Multiple imputation: write M completed copies into the folder --out, each "
@@ -80,6 +87,13 @@ def fill(
     With --plan the methods are fitted on FILE (or --fit-on); with --model a model saved by
     fit fills FILE without refitting.
     """
+    if cluster is not None:
+        if draws or stream:
+            raise OptionError("--cluster fills in partitions on the cluster; it does not go "
+                              "with --draws or --stream")
+        _fill_cluster(file, out_path, plan_path, model_path, fit_on, force, unseen,
+                      sample_rows, cluster, json, quiet)
+        return
     if draws:
         _fill_draws(file, out_path, plan_path, model_path, fit_on, force, draws, json, quiet)
         return
@@ -165,34 +179,63 @@ def _fill_draws(file: Path, out_dir: Path, plan_path: Path | None, model_path: P
 STREAM_ABOVE_BYTES = 256 * 2**20
 
 
-def _fill_streaming(file: Path, out_path: Path, plan_path: Path | None,
-                    model_path: Path | None, fit_on: Path | None, force: bool,
-                    unseen: str | None, sample_rows: int, chunk_rows: int, jobs: int,
-                    json: bool, quiet: bool) -> None:
+def _fitted(file: Path, plan_path: Path | None, model_path: Path | None,
+            fit_on: Path | None, force: bool, unseen: str | None, sample_rows: int,
+            fix: str) -> tuple[FittedFill, Plan, FillReport, str]:
+    """The fitted methods a chunked fill applies: a saved model's, or the plan's fitted on a
+    sample of FILE (or --fit-on); with the report so far and a note for the closing line."""
     if (plan_path is None) == (model_path is None):
         raise OptionError("give --plan or --model, not both" if plan_path else
                           "give --plan or --model")
     if unseen not in (None, "keep"):
-        raise OptionError("--unseen missing|mode needs the whole file in memory; pass "
-                          "--no-stream")
-    if sample_rows < 1 or chunk_rows < 1 or jobs < 0:
+        raise OptionError(f"--unseen missing|mode needs the whole file in memory; {fix}")
+    if sample_rows < 1:
+        raise OptionError("--fit-sample must be at least 1")
+    if model_path is not None:
+        if fit_on is not None or force:
+            raise OptionError("--fit-on and --force go with --plan; a saved model is already "
+                              "fitted")
+        model = load_model(model_path)
+        report = FillReport()
+        report.warnings.extend(model.warnings)
+        return model.fitted, model.plan, report, ""
+    plan = Plan.load(plan_path)
+    source, option = (fit_on, "--fit-on") if fit_on else (file, "FILE")
+    if source.is_dir():
+        raise OptionError(f"FILE '{file}' is a folder: fit the plan once with imputelab fit "
+                          "and pass --model, or give --fit-on FILE to fit on")
+    fitted, report = sample_and_fit(source, plan, n=sample_rows, force=force, option=option)
+    return fitted, plan, report, f" Methods fitted on at most {sample_rows:,} rows of " \
+        f"{source.name}."
+
+
+def _fill_streaming(file: Path, out_path: Path, plan_path: Path | None,
+                    model_path: Path | None, fit_on: Path | None, force: bool,
+                    unseen: str | None, sample_rows: int, chunk_rows: int, jobs: int,
+                    json: bool, quiet: bool) -> None:
+    if chunk_rows < 1 or jobs < 0:
         raise OptionError("--fit-sample and --chunk-rows must be at least 1, --jobs 0 or more")
-    n_jobs = jobs or (os.cpu_count() or 1)
-    note = ""
     with progress_bar("filling in chunks", quiet=quiet or json) as update:
-        if model_path is not None:
-            if fit_on is not None or force:
-                raise OptionError("--fit-on and --force go with --plan; a saved model is "
-                                  "already fitted")
-            model = load_model(model_path)
-            fitted, plan, report = model.fitted, model.plan, FillReport()
-            report.warnings.extend(model.warnings)
-        else:
-            plan = Plan.load(plan_path)
-            source, option = (fit_on, "--fit-on") if fit_on else (file, "FILE")
-            fitted, report = sample_and_fit(source, plan, n=sample_rows, force=force,
-                                            option=option)
-            note = f" Methods fitted on at most {sample_rows:,} rows of {source.name}."
+        fitted, plan, report, note = _fitted(file, plan_path, model_path, fit_on, force,
+                                             unseen, sample_rows, "pass --no-stream")
         report = stream_fill(file, out_path, fitted, plan, chunk_rows=chunk_rows,
-                             progress=update, report=report, n_jobs=n_jobs)
+                             progress=update, report=report,
+                             n_jobs=jobs or (os.cpu_count() or 1))
     _print_report(report, out_path, f", chunk by chunk.{note}", json, quiet, streamed=True)
+
+
+def _fill_cluster(file: Path, out_dir: Path, plan_path: Path | None, model_path: Path | None,
+                  fit_on: Path | None, force: bool, unseen: str | None, sample_rows: int,
+                  cluster: str, json: bool, quiet: bool) -> None:
+    if out_dir.suffix.lower() == ".csv":
+        raise OptionError(f"--out '{out_dir}': with --cluster the output is a folder of "
+                          "Parquet files; give a folder name (e.g. filled or filled.parquet)")
+    check_output(out_dir, [file] + ([fit_on] if fit_on else []))
+    fitted, plan, report, note = _fitted(file, plan_path, model_path, fit_on, force, unseen,
+                                         sample_rows, "drop --cluster")
+    with open_executor(cluster=cluster) as executor, \
+            progress_bar("filling partitions", quiet=quiet or json) as update:
+        report = cluster_fill(file, out_dir, fitted, plan, executor.client, progress=update,
+                              report=report)
+    _print_report(report, out_dir, f", a folder of Parquet files, on the cluster.{note}", json,
+                  quiet, cluster=True)

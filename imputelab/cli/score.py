@@ -19,6 +19,7 @@ from imputelab.cli._common import (
 )
 from imputelab.cli._options import (
     ChecksOpt,
+    ClusterOpt,
     CodeOpt,
     DateOpt,
     DropOpt,
@@ -30,6 +31,7 @@ from imputelab.cli._options import (
     survey_options,
 )
 from imputelab.cli.report import report_line
+from imputelab.cluster import open_executor
 from imputelab.errors import OptionError
 from imputelab.io import read_table
 from imputelab.metrics import PRIMARY, get_metric
@@ -173,8 +175,11 @@ def score(
         "--target-folds", help="Folds of the model experiment.")] = 5,
     sample: Annotated[int, typer.Option(
         help="Run the experiment on at most this many rows (0: all rows).")] = 10_000,
-    jobs: Annotated[int, typer.Option("--jobs", "-j", help="Parallel tasks (0: all cores).")]
+    jobs: Annotated[int, typer.Option(
+        "--jobs", "-j", help="Parallel tasks (0: all cores). With --cluster, the cluster runs "
+        "the method experiment and --jobs only the survey's checks and the model check.")]
     = 0,
+    cluster: ClusterOpt = None,
     use_target: Annotated[bool, typer.Option(
         "--use-target", help="Let the target help fill the other columns.")] = False,
     kind: KindOpt = None,
@@ -213,9 +218,10 @@ def score(
         downstream=target_check,
         downstream_folds=target_folds,
     )
-    table = read_table(file)
-    with progress_bar("scoring methods", quiet=quiet) as update:
-        plan, survey, result = score_table(table, options, progress=update)
+    with open_executor(jobs, cluster) as executor, \
+            progress_bar("scoring methods", quiet=quiet) as update:
+        table = read_table(file)
+        plan, survey, result = score_table(table, options, progress=update, executor=executor)
     plan.save(out_path)
     if report_path is not None:
         with progress_bar("writing the report", quiet=quiet) as update:
