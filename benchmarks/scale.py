@@ -78,6 +78,8 @@ def timed_score(path: Path, jobs: int, cluster: str | None) -> dict:
         done = time.perf_counter()
     tasks = result.scores.groupby("method")[["mask", "repeat"]].apply(
         lambda g: len(g.drop_duplicates())).to_dict()
+    if result.blend:  # cross-fitted from its components' fills: it ran no task of its own
+        tasks.pop("blend", None)
     return {"seconds": done - ready, "startup": ready - start, "plan": plan.to_json(),
             "task_seconds": {m: result.seconds[m] / tasks[m] for m in tasks},
             "tasks": tasks, "columns": int(result.scores["column"].nunique())}

@@ -64,3 +64,20 @@ def test_report_prints_one_closing_line(trip_log_plan, tmp_path):
     (line,) = result.stdout.splitlines()
     assert line.startswith(f"Report written to {out}") and "estimates" in line
     assert "Not run: the survey's checks were switched off" in out.read_text("utf-8")
+
+
+def test_file_text_in_square_brackets_is_printed_not_read_as_console_markup():
+    # A reason quoting the experiment as "[experiment: ...]" and a column named "[b]x" once
+    # vanished from the terminal tables: rich read them as style tags.
+    from imputelab.cli._common import out
+    from imputelab.cli.score import plan_rich_table
+    from imputelab.plan import ColumnPlan, Plan
+
+    plan = Plan(source={}, settings={}, columns={"[b]x": ColumnPlan(
+        kind="numeric", missing_fraction=0.1, action="impute", method="mean",
+        reason="rule [experiment: knn won] kept")})
+    with out.capture() as captured:
+        out.print(plan_rich_table(plan))
+    text = " ".join(captured.get().split())
+    assert "[b]x" in text
+    assert "[experiment: knn won]" in text

@@ -20,10 +20,12 @@ from imputelab.errors import ImputelabError, OptionError
 F = TypeVar("F", bound=Callable[..., Any])
 
 # A pipe or a log gets 120 columns rather than rich's 80, so tables stay readable.
-out = Console(highlight=False, soft_wrap=False)
+# No console markup: file-derived text ("[experiment: ...]" in a reason, a column named
+# "[b]x") would otherwise be read as style tags and vanish.
+out = Console(highlight=False, soft_wrap=False, markup=False)
 if not out.is_terminal and "COLUMNS" not in os.environ:
-    out = Console(highlight=False, soft_wrap=False, width=120)
-err = Console(stderr=True, highlight=False)
+    out = Console(highlight=False, soft_wrap=False, width=120, markup=False)
+err = Console(stderr=True, highlight=False, markup=False)
 
 
 def fail(message: str) -> None:

@@ -7,6 +7,7 @@ from pathlib import Path
 from typing import Annotated
 
 import typer
+from rich import box
 from rich.table import Table as RichTable
 
 from imputelab.cli._common import (
@@ -61,11 +62,14 @@ def scores_rich_table(plan: Plan) -> RichTable:
     methods = list(plan.settings.get("methods", []))
     table = RichTable(title="Scores: mean over masks and repeats of the score the choice "
                             "ranks by (* = chosen; a structural column is filled by its rule)",
-                      title_justify="left")
+                      # No rules between columns and one space apart: nine methods fit in
+                      # a 100-column terminal.
+                      title_justify="left", box=box.SIMPLE_HEAD, collapse_padding=True,
+                      pad_edge=False)
     table.add_column("column", no_wrap=True)
-    table.add_column("metric")
+    table.add_column("metric", no_wrap=True)
     for method in methods:
-        table.add_column(SHORT.get(method, method), justify="right")
+        table.add_column(SHORT.get(method, method), justify="right", no_wrap=True, min_width=6)
     rule_filled = []
     for name, col in plan.columns.items():
         if not col.scores:
@@ -235,7 +239,7 @@ def score(
     out.print(plan_rich_table(plan))
     if result is not None:
         for failure in result.failures:
-            out.print(f"[yellow]note[/]: {failure['method']} failed on {failure['mask']} "
+            out.print(f"note: {failure['method']} failed on {failure['mask']} "
                       f"draw {failure['repeat']}: {failure['error']}")
     if target is not None:
         out.print(f"Rows with the target '{target}' missing: "
