@@ -6,7 +6,7 @@ the first file, fits it once on a reservoir sample (``--fit-sample``, default 20
 and saves the model. Then, for every file, each of these runs in its own process, so that
 its peak memory is its own:
 
-- ``fill``: ``imputelab.streaming.stream_fill`` with the loaded model (``fill --model``),
+- ``fill``: ``imputelab.fill.streamed.stream_fill`` with the loaded model (``fill --model``),
   in this process (``jobs=1``) and with worker processes (``--jobs``);
 - ``stream, pass-through``: ``stream_fill`` with a plan that fills nothing and reads every
   column as text: the streaming layer's own cost (read, frames, text, CSV writing);
@@ -55,8 +55,8 @@ CODES = {"driver_rating": [99]}
 
 
 def child_fill(path: str, out: str, model: str, jobs: int) -> dict:
-    from imputelab.model import load_model
-    from imputelab.streaming import stream_fill
+    from imputelab.fill.saved import load_model
+    from imputelab.fill.streamed import stream_fill
 
     saved = load_model(model)
     start = time.perf_counter()
@@ -66,9 +66,9 @@ def child_fill(path: str, out: str, model: str, jobs: int) -> dict:
 
 
 def child_passthrough(path: str, out: str) -> dict:
-    from imputelab.fill import clean_with_plan, fit_plan
-    from imputelab.plan import ColumnPlan, Plan
-    from imputelab.streaming import reservoir_sample, stream_fill
+    from imputelab.fill.frame import clean_with_plan, fit_plan
+    from imputelab.fill.streamed import reservoir_sample, stream_fill
+    from imputelab.score.plan import ColumnPlan, Plan
 
     head = reservoir_sample(path, 1000, seed=0)
     plan = Plan(source={}, settings={}, columns={
@@ -112,7 +112,7 @@ def child_arrow(path: str, out: str) -> dict:
 def child_pandas(path: str, out: str) -> dict:
     import pandas as pd
 
-    from imputelab.streaming import DEFAULT_CHUNK_ROWS
+    from imputelab.fill.streamed import DEFAULT_CHUNK_ROWS
 
     start = time.perf_counter()
     rows = 0
@@ -183,7 +183,7 @@ def measure(argv: list[str]) -> dict:
 
 def generate(path: Path, rows: int) -> None:
     """A demo trip log of ``rows`` rows written chunk by chunk (memory-flat)."""
-    from imputelab.demo import make_trip_log
+    from imputelab.bench.demo_data import make_trip_log
 
     with open(path, "w", encoding="utf-8", newline="") as handle:
         done = part = 0
@@ -198,10 +198,10 @@ def generate(path: Path, rows: int) -> None:
 def fit_model(path: Path, model: Path, methods: list[str], fit_rows: int) -> dict:
     from threadpoolctl import threadpool_limits
 
-    from imputelab.model import fit_table, save_model
-    from imputelab.scoring import ScoreOptions, score_table
-    from imputelab.streaming import reservoir_sample
-    from imputelab.survey import SurveyOptions
+    from imputelab.fill.saved import fit_table, save_model
+    from imputelab.fill.streamed import reservoir_sample
+    from imputelab.score.build import ScoreOptions, score_table
+    from imputelab.survey.table import SurveyOptions
 
     start = time.perf_counter()
     options = ScoreOptions(masks=("mcar",), repeats=1, methods=methods, downstream=False,

@@ -29,11 +29,11 @@ import time
 from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 
-from imputelab.cluster import open_executor
-from imputelab.demo import write_trip_log
-from imputelab.io import read_table
-from imputelab.scoring import ScoreOptions, score_table
-from imputelab.survey import SurveyOptions
+from imputelab.bench.demo_data import write_trip_log
+from imputelab.executors.pool import open_executor
+from imputelab.io.tables import read_table
+from imputelab.score.build import ScoreOptions, score_table
+from imputelab.survey.table import SurveyOptions
 
 TARGET = "spoiled"
 CODES = {"driver_rating": [99]}

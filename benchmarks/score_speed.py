@@ -27,14 +27,14 @@ from pathlib import Path
 import numpy as np
 from threadpoolctl import threadpool_limits
 
-from imputelab.demo import write_trip_log
-from imputelab.encoding import with_derived
-from imputelab.io import read_table
+from imputelab.bench.demo_data import write_trip_log
+from imputelab.frame.encoding import with_derived
+from imputelab.frame.setup import default_action, working_setup
+from imputelab.io.tables import read_table
 from imputelab.masks import get_mask
 from imputelab.methods import get_method, get_method_names
-from imputelab.prepare import default_action, working_setup
-from imputelab.scoring import ScoreOptions, score_table
-from imputelab.survey import SurveyOptions, survey_table
+from imputelab.score.build import ScoreOptions, score_table
+from imputelab.survey.table import SurveyOptions, survey_table
 
 TARGET = "spoiled"
 CODES = {"driver_rating": [99]}

@@ -11,16 +11,23 @@ Examples
 """
 
 from imputelab.errors import DataError, ImputelabError, OptionError, PlanError, TableIOError
-from imputelab.fill import FillReport, FittedFill, clean_with_plan, fill_frame, fill_table, fit_plan
-from imputelab.io import Table, read_table, write_table
+from imputelab.fill.frame import (
+    FillReport,
+    FittedFill,
+    clean_with_plan,
+    fill_frame,
+    fill_table,
+    fit_plan,
+)
+from imputelab.fill.pooling import PooledResult, pool
+from imputelab.fill.transformer import PlanImputer
+from imputelab.io.tables import Table, read_table, write_table
 from imputelab.masks import get_mask, get_mask_names
 from imputelab.methods import FillMethod, get_method, get_method_names
-from imputelab.plan import ColumnPlan, Plan
-from imputelab.pooling import PooledResult, pool
-from imputelab.report import build_report, write_report
-from imputelab.scoring import ScoreOptions, score_table
-from imputelab.survey import Survey, SurveyOptions, survey_table
-from imputelab.transformer import PlanImputer
+from imputelab.report.page import build_report, write_report
+from imputelab.score.build import ScoreOptions, score_table
+from imputelab.score.plan import ColumnPlan, Plan
+from imputelab.survey.table import Survey, SurveyOptions, survey_table
 
 __all__ = [
     "ColumnPlan",

@@ -8,8 +8,8 @@ import pytest
 from threadpoolctl import threadpool_limits
 from typer.testing import CliRunner
 
+from imputelab.bench.demo_data import write_trip_log
 from imputelab.cli import app
-from imputelab.demo import write_trip_log
 
 TRIP_LOG_ROWS = 300
 # Cheap experiment settings: enough to exercise every command, a second or two per score run.

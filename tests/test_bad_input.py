@@ -20,8 +20,8 @@ from typing import Any
 import pytest
 from typer.testing import CliRunner, Result
 
+from imputelab.bench.demo_data import make_trip_log, write_trip_log
 from imputelab.cli import app
-from imputelab.demo import make_trip_log, write_trip_log
 
 pytestmark = pytest.mark.usefixtures("single_blas_thread")
 

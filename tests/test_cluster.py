@@ -19,7 +19,9 @@ from cli_helpers import invoke, load, ok
 from distributed import Client
 from threadpoolctl import threadpool_limits
 
-from imputelab.cluster import (
+from imputelab.bench.demo_data import make_trip_log, write_trip_log
+from imputelab.errors import OptionError
+from imputelab.executors.pool import (
     DaskExecutor,
     JoblibExecutor,
     SerialExecutor,
@@ -27,13 +29,11 @@ from imputelab.cluster import (
     parse_cluster,
     worker_result,
 )
-from imputelab.cluster_fill import _csv_pieces, _read_piece, cluster_fill
-from imputelab.demo import make_trip_log, write_trip_log
-from imputelab.errors import OptionError
-from imputelab.fill import clean_with_plan, fill_table, fit_plan
-from imputelab.io import read_table
-from imputelab.scoring import ScoreOptions, score_table
-from imputelab.survey import SurveyOptions
+from imputelab.fill.frame import clean_with_plan, fill_table, fit_plan
+from imputelab.fill.partitioned import _csv_pieces, _read_piece, cluster_fill
+from imputelab.io.tables import read_table
+from imputelab.score.build import ScoreOptions, score_table
+from imputelab.survey.table import SurveyOptions
 
 ROWS = 300
 OPTIONS = ScoreOptions(survey=SurveyOptions(missing_codes={"driver_rating": [99]},

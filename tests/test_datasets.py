@@ -11,7 +11,13 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from imputelab.datasets import META_DIR, dataset_names, gaussian_parameters, load_dataset, read_meta
+from imputelab.bench.datasets import (
+    META_DIR,
+    dataset_names,
+    gaussian_parameters,
+    load_dataset,
+    read_meta,
+)
 
 CALIFORNIA = Path(__file__).resolve().parents[2] / "shared" / "data" / "california_housing.csv"
 NAMES = dataset_names()

@@ -1,6 +1,6 @@
 """The built-in trip log: format, determinism and the planted missingness mechanisms.
 
-Planted rates come from the project's own design (imputelab.demo.PLANTED); the tolerances
+Planted rates come from the project's own design (demo_data.PLANTED); the tolerances
 around them are common practice, no source. Mechanism checks lean on scipy.stats and
 scikit-learn as reference libraries.
 """
@@ -13,7 +13,7 @@ import pytest
 from scipy import stats
 from sklearn.linear_model import LinearRegression
 
-from imputelab.demo import (
+from imputelab.bench.demo_data import (
     DEMO_COLUMNS,
     PLANTED,
     _make_trip_log_with_truth,

@@ -1,4 +1,4 @@
-"""Tests for imputelab.draws: multiple imputation draws, checked against statistics.
+"""Tests for fill.multiple: multiple imputation draws, checked against statistics.
 
 Sources named beside each check: Rubin (1987), *Multiple Imputation for Nonresponse in
 Surveys* (proper imputation gives intervals with their nominal coverage; single imputation
@@ -18,15 +18,15 @@ import pytest
 from scipy import stats
 from threadpoolctl import threadpool_limits
 
-from imputelab.draws import _match, draw_datasets, iter_draws
 from imputelab.errors import DataError, OptionError, PlanError
-from imputelab.fill import FillReport, fit_plan
-from imputelab.kinds import ColumnSpec
+from imputelab.fill.frame import FillReport, fit_plan
+from imputelab.fill.multiple import _match, draw_datasets, iter_draws
+from imputelab.fill.pooling import pool
+from imputelab.fill.saved import load_model, save_model
+from imputelab.io.columns import ColumnSpec
 from imputelab.methods import FillMethod
-from imputelab.methods._design import Design
-from imputelab.model import load_model, save_model
-from imputelab.plan import ColumnPlan, Plan
-from imputelab.pooling import pool
+from imputelab.methods.design import Design
+from imputelab.score.plan import ColumnPlan, Plan
 
 MINUTES = "%Y-%m-%d %H:%M"
 CARGO = ["dairy", "fish", "fruit", "meat"]  # "fish": a category no row holds

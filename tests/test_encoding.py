@@ -1,4 +1,4 @@
-"""Tests for imputelab.encoding: typed table <-> working frame, and derived datetime features."""
+"""Tests for frame.encoding: typed table <-> working frame, and derived datetime features."""
 
 from __future__ import annotations
 
@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from imputelab.encoding import Encoding, derived_from, is_categorical, with_derived
+from imputelab.frame.encoding import Encoding, derived_from, is_categorical, with_derived
 
 KINDS = {
     "temp_c": "numeric",

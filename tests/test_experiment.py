@@ -1,4 +1,4 @@
-"""Tests for imputelab.experiment: the grid, its seeds, its failures, and what it measures."""
+"""Tests for score.experiment: the grid, its seeds, its failures, and what it measures."""
 
 from __future__ import annotations
 
@@ -14,16 +14,16 @@ from sklearn.impute import SimpleImputer
 from sklearn.metrics import mean_squared_error
 from threadpoolctl import threadpool_limits
 
-import imputelab.experiment as experiment
+import imputelab.score.experiment as experiment
 from imputelab.errors import OptionError
-from imputelab.experiment import derive_seed, run_experiment
-from imputelab.fill import fill_table
-from imputelab.io import read_table
+from imputelab.fill.frame import fill_table
+from imputelab.io.tables import read_table
 from imputelab.methods import get_method
 from imputelab.methods.simple import MedianFill
-from imputelab.plan import Plan
-from imputelab.scoring import ScoreOptions, score_table
-from imputelab.survey import SurveyOptions
+from imputelab.score.build import ScoreOptions, score_table
+from imputelab.score.experiment import derive_seed, run_experiment
+from imputelab.score.plan import Plan
+from imputelab.survey.table import SurveyOptions
 
 CHEAP = {"mean": {}, "median": {}, "mode": {}, "chained-linear": {}}
 KINDS = {"transit_h": "numeric", "temp_c": "numeric", "door": "binary", "depot": "categorical"}
@@ -277,7 +277,7 @@ def test_a_negative_seed_is_refused_as_an_option():
 def test_derive_seed_is_the_same_in_a_fresh_interpreter():
     # Python salts str hashes per process (PYTHONHASHSEED, random unless set); a seed built
     # on hash() would change from run to run. A fresh interpreter must agree with this one.
-    code = ("import json; from imputelab.experiment import derive_seed; "
+    code = ("import json; from imputelab.score.experiment import derive_seed; "
             "print(json.dumps([derive_seed(0, 'mcar', 0, 'mean'), derive_seed(7, 'fill', "
             "'chained-boosted')]))")
     expected = [derive_seed(0, "mcar", 0, "mean"), derive_seed(7, "fill", "chained-boosted")]

@@ -1,4 +1,4 @@
-"""Tests for imputelab.fill: what a fill may change, what it must keep, and the file it writes."""
+"""Tests for fill.frame: what a fill may change, what it must keep, and the file it writes."""
 
 from __future__ import annotations
 
@@ -17,7 +17,7 @@ from hypothesis import strategies as st
 from threadpoolctl import threadpool_limits
 
 from imputelab.errors import DataError, PlanError
-from imputelab.fill import (
+from imputelab.fill.frame import (
     FillReport,
     check_plan,
     clean_with_plan,
@@ -25,11 +25,11 @@ from imputelab.fill import (
     fill_table,
     fit_plan,
 )
-from imputelab.io import Table, read_table, write_table
-from imputelab.kinds import ColumnSpec
-from imputelab.plan import ColumnPlan, Plan
-from imputelab.scoring import ScoreOptions, score_table
-from imputelab.survey import SurveyOptions
+from imputelab.io.columns import ColumnSpec
+from imputelab.io.tables import Table, read_table, write_table
+from imputelab.score.build import ScoreOptions, score_table
+from imputelab.score.plan import ColumnPlan, Plan
+from imputelab.survey.table import SurveyOptions
 
 CHEAP = ScoreOptions(masks=("mcar",), repeats=1, methods=["mean", "median", "mode",
                                                           "chained-linear"])
@@ -258,7 +258,7 @@ def test_parameters_the_method_does_not_take_are_ignored_with_a_warning():
     ("chained-boosted", {"learning_rate": -1.0}),
 ])
 def test_a_bad_parameter_value_is_a_plan_error(method, params):
-    # The plan is meant to be edited by hand (see imputelab.plan); a bad value is the user's
+    # The plan is meant to be edited by hand (see imputelab.score.plan); a bad value is the user's
     # to fix, so it must come back as a PlanError naming the column.
     plan = hand_plan(dict.fromkeys(SPECS, "mode"))
     plan.columns["temp_c"].method = method

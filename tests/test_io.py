@@ -1,4 +1,4 @@
-"""Tests for imputelab.io: CSV dialect sniffing, text fidelity, Parquet types, errors, atomicity."""
+"""Tests for io.tables: CSV dialect sniffing, text fidelity, Parquet types, errors, atomicity."""
 
 from __future__ import annotations
 
@@ -14,7 +14,7 @@ import pyarrow.parquet as pq
 import pytest
 
 from imputelab.errors import DataError, TableIOError
-from imputelab.io import atomic_path, file_fingerprint, read_table, table_format, write_table
+from imputelab.io.tables import atomic_path, file_fingerprint, read_table, table_format, write_table
 
 
 def _write(path: Path, content: str | bytes) -> Path:

@@ -1,4 +1,4 @@
-"""Tests for imputelab.kinds: kind inference, disguised blanks, missing codes, cleaning."""
+"""Tests for io.columns: kind inference, disguised blanks, missing codes, cleaning."""
 
 from __future__ import annotations
 
@@ -12,8 +12,7 @@ from hypothesis import assume, example, given, settings
 from hypothesis import strategies as st
 
 from imputelab.errors import DataError, OptionError
-from imputelab.io import read_table
-from imputelab.kinds import (
+from imputelab.io.columns import (
     KINDS,
     MISSING_TOKENS,
     NUMERIC_SHARE,
@@ -25,6 +24,7 @@ from imputelab.kinds import (
     parse_numbers,
     suspected_codes,
 )
+from imputelab.io.tables import read_table
 
 
 def _text(values: list[str], name: str = "col") -> pd.Series:

@@ -1,4 +1,4 @@
-"""Tests of imputelab.diagnostics.mcar_test: EM estimates, then Little's MCAR test.
+"""Tests of imputelab.survey.diagnostics.mcar_test: EM estimates, then Little's MCAR test.
 
 Sources: Little (1988), JASA 83(404):1198-1202 for the statistic; Little & Rubin,
 *Statistical Analysis with Missing Data* (2nd ed. 2002) for EM and the monotone closed form;
@@ -16,8 +16,8 @@ import pytest
 import scipy.optimize
 import scipy.stats
 
-from imputelab.diagnostics.mcar_test import EMResult, LittleTest, em_mvn, little_mcar_test
 from imputelab.errors import DataError, OptionError
+from imputelab.survey.diagnostics.mcar_test import EMResult, LittleTest, em_mvn, little_mcar_test
 
 SEEDS = [0, 1, 2]
 CORR4 = np.array(

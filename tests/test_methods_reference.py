@@ -196,7 +196,7 @@ def test_bivariate_normal_nrmse_is_sqrt_one_minus_rho_squared(seed: int) -> None
     y = 10.0 + 3.0 * (rho * x + np.sqrt(1 - rho**2) * rng.normal(size=n))
     hidden = rng.random(n) < 0.3
     frame = pd.DataFrame({"x": x, "y": np.where(hidden, np.nan, y)})
-    sd = np.std(y[~hidden])  # NRMSE scale: the observed sd (ddof=0), as imputelab.metrics
+    sd = np.std(y[~hidden])  # NRMSE scale: the observed sd (ddof=0), as imputelab.metrics.scores
 
     chained = get_method("chained-linear", random_state=0).fit_transform(frame, ["y"])
     flat = get_method("mean").fit_transform(frame, ["y"])

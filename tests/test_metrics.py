@@ -1,4 +1,4 @@
-"""Tests for imputelab.metrics against reference libraries and published definitions."""
+"""Tests for imputelab.metrics.scores against reference libraries and published definitions."""
 
 from __future__ import annotations
 
@@ -15,7 +15,7 @@ from hypothesis import strategies as st
 from hypothesis.extra import numpy as hnp
 
 from imputelab.errors import DataError, OptionError
-from imputelab.metrics import (
+from imputelab.metrics.scores import (
     METRICS,
     PRIMARY,
     Metric,

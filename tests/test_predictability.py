@@ -1,4 +1,4 @@
-"""Tests for imputelab.diagnostics.predictability against published formulas and references.
+"""Tests for imputelab.survey.diagnostics.predictability against published formulas and references.
 
 The AUC itself is checked against scikit-learn (sklearn.metrics.roc_auc_score) and its interval
 against Hanley & McNeil (1982), *Radiology* 143:29-36.
@@ -16,8 +16,12 @@ import pytest
 import scipy.stats
 from sklearn.metrics import roc_auc_score
 
-from imputelab.demo import write_trip_log
-from imputelab.diagnostics.predictability import (
+from imputelab.bench.demo_data import write_trip_log
+from imputelab.errors import DataError, OptionError
+from imputelab.frame.encoding import derived_from, with_derived
+from imputelab.frame.setup import default_action, working_setup
+from imputelab.io.tables import read_table
+from imputelab.survey.diagnostics.predictability import (
     CAUTION,
     MAR_AUC_THRESHOLD,
     VERDICT_DEPENDS,
@@ -29,11 +33,7 @@ from imputelab.diagnostics.predictability import (
     hanley_mcneil_se,
     missingness_predictability,
 )
-from imputelab.encoding import derived_from, with_derived
-from imputelab.errors import DataError, OptionError
-from imputelab.io import read_table
-from imputelab.prepare import default_action, working_setup
-from imputelab.survey import survey_table
+from imputelab.survey.table import survey_table
 
 
 def _sigmoid(x: np.ndarray) -> np.ndarray:
@@ -252,7 +252,7 @@ def _check_demo_column(working: pd.DataFrame, name: str) -> MissingnessCheck:
 
 
 def test_demo_ambient_blanks_follow_the_departure_hour(demo_working: pd.DataFrame) -> None:
-    # planted in imputelab.demo: the sensor drops out mostly on night departures
+    # planted in imputelab.bench.demo_data: the sensor drops out mostly on night departures
     check = _check_demo_column(demo_working, "ambient_c")
     assert check.verdict == VERDICT_DEPENDS
     assert check.drivers[0] in derived_from("departed_at", list(demo_working.columns))

@@ -19,12 +19,12 @@ import pytest
 from cli_helpers import invoke, load, ok
 from threadpoolctl import threadpool_limits
 
-from imputelab.demo import write_trip_log
-from imputelab.io import read_table
-from imputelab.plan import Plan
-from imputelab.report import SECTIONS, build_report, survey_options_for
-from imputelab.scoring import ScoreOptions, score_table
-from imputelab.survey import SurveyOptions, survey_table
+from imputelab.bench.demo_data import write_trip_log
+from imputelab.io.tables import read_table
+from imputelab.report.page import SECTIONS, build_report, survey_options_for
+from imputelab.score.build import ScoreOptions, score_table
+from imputelab.score.plan import Plan
+from imputelab.survey.table import SurveyOptions, survey_table
 
 CHROMIUM = "/usr/bin/chromium"
 # ../shared/ECOSYSTEM_NOTES.md: headless as root, a fresh profile, and every network path shut
@@ -129,7 +129,7 @@ def test_one_experiment_chart_per_scored_column(page, trip_log_plan):
 def test_filling_section_shows_every_column_with_holes(page, trip_log_plan):
     plan = load(trip_log_plan)
     part = section(page, "filling")
-    # The demo's planted structural blank (imputelab.demo.PLANTED): setpoint_c is filled by
+    # The demo's planted structural blank (demo_data.PLANTED): setpoint_c is filled by
     # its rule; every imputed column with a blank in the file gets a chart.
     holed = [n for n, c in plan["columns"].items()
              if c["action"] == "impute" and c["missing_fraction"] > 0]

@@ -1,4 +1,4 @@
-"""Tests for imputelab.streaming: chunked fills equal the in-memory fill; reservoir samples.
+"""Tests for fill.streamed: chunked fills equal the in-memory fill; reservoir samples.
 
 The reference for every fill here is the in-memory path itself (read_table, fill_table,
 write_table), which pandas' own reader and writer implement; the streamed output must match
@@ -22,16 +22,16 @@ from hypothesis import strategies as st
 from scipy.stats import chisquare
 from threadpoolctl import threadpool_limits
 
-import imputelab.streaming as streaming
-from imputelab.demo import make_trip_log, write_trip_log
+import imputelab.fill.streamed as streaming
+from imputelab.bench.demo_data import make_trip_log, write_trip_log
 from imputelab.errors import DataError, OptionError, TableIOError
-from imputelab.fill import FillReport, clean_with_plan, fill_table, fit_plan
-from imputelab.io import read_table, write_table
-from imputelab.kinds import ColumnSpec
-from imputelab.plan import ColumnPlan, Plan
-from imputelab.scoring import ScoreOptions, score_table
-from imputelab.streaming import fit_sample, reservoir_sample, stream_fill
-from imputelab.survey import SurveyOptions
+from imputelab.fill.frame import FillReport, clean_with_plan, fill_table, fit_plan
+from imputelab.fill.streamed import fit_sample, reservoir_sample, stream_fill
+from imputelab.io.columns import ColumnSpec
+from imputelab.io.tables import read_table, write_table
+from imputelab.score.build import ScoreOptions, score_table
+from imputelab.score.plan import ColumnPlan, Plan
+from imputelab.survey.table import SurveyOptions
 
 CHEAP = ScoreOptions(masks=("mcar",), repeats=1, downstream=False,
                      methods=["mean", "median", "mode", "chained-linear"],

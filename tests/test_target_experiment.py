@@ -1,4 +1,4 @@
-"""Tests for imputelab.target_experiment: folds without leakage, reference models, indicators."""
+"""Tests for score.target: folds without leakage, reference models, indicators."""
 
 from __future__ import annotations
 
@@ -17,12 +17,12 @@ from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import OneHotEncoder, StandardScaler
 from threadpoolctl import threadpool_limits
 
-import imputelab.target_experiment as target_experiment
+import imputelab.score.target as target_experiment
 from imputelab.errors import DataError, OptionError
-from imputelab.experiment import derive_seed
 from imputelab.methods import get_method
 from imputelab.methods.simple import MedianFill
-from imputelab.target_experiment import NO_FILL, run_target_experiment
+from imputelab.score.experiment import derive_seed
+from imputelab.score.target import NO_FILL, run_target_experiment
 
 CHEAP = ["mean", "median", "chained-linear"]
 KINDS = {"load_t": "numeric", "hours": "numeric", "temp_c": "numeric", "depot": "categorical"}

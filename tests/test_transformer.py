@@ -1,4 +1,4 @@
-"""Tests for imputelab.transformer.PlanImputer: a scikit-learn citizen that learns on the
+"""Tests for imputelab.fill.transformer.PlanImputer: a scikit-learn citizen that learns on the
 training rows only, keeps every column's dtype and fills new rows without refitting."""
 
 from __future__ import annotations
@@ -29,12 +29,12 @@ from sklearn.utils.estimator_checks import (
 )
 from threadpoolctl import threadpool_limits
 
-import imputelab.transformer as transformer_module
+import imputelab.fill.transformer as transformer_module
 from imputelab.errors import PlanError
-from imputelab.fill import fill_table
-from imputelab.io import read_table
-from imputelab.plan import ColumnPlan, Plan
-from imputelab.transformer import PlanImputer
+from imputelab.fill.frame import fill_table
+from imputelab.fill.transformer import PlanImputer
+from imputelab.io.tables import read_table
+from imputelab.score.plan import ColumnPlan, Plan
 
 # Cheap scoring: these tests are about what the transformer keeps and learns from, not about
 # which method wins.

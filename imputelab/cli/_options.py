@@ -10,7 +10,7 @@ import typer
 
 from imputelab.cli._common import parse_code, parse_pairs
 from imputelab.errors import OptionError
-from imputelab.survey import DEFAULT_DROP_THRESHOLD, SurveyOptions
+from imputelab.survey.table import DEFAULT_DROP_THRESHOLD, SurveyOptions
 
 FileArg = Annotated[Path, typer.Argument(help="A .csv or .parquet file.", show_default=False)]
 KindOpt = Annotated[list[str] | None, typer.Option(

@@ -10,7 +10,7 @@ from typing import Annotated
 
 import typer
 
-from imputelab.bench import PLAN, BenchOptions, plain_data, run_bench, write_bench
+from imputelab.bench.runner import PLAN, BenchOptions, plain_data, run_bench, write_bench
 from imputelab.cli._common import err, handle_errors, out, parse_list, print_json, progress_bar
 from imputelab.cli._options import JobsOpt, JsonOpt, QuietOpt
 from imputelab.errors import OptionError

@@ -10,6 +10,7 @@ from typing import Annotated
 
 import typer
 
+from imputelab.bench.demo_data import write_trip_log
 from imputelab.cli._common import handle_errors, out, print_json, progress_bar
 from imputelab.cli.fill import report_rich_table
 from imputelab.cli.score import (
@@ -19,12 +20,11 @@ from imputelab.cli.score import (
     scores_rich_table,
 )
 from imputelab.cli.survey import evidence_lines, survey_rich_table
-from imputelab.demo import write_trip_log
-from imputelab.fill import fill_table
-from imputelab.io import read_table, write_table
-from imputelab.report import write_report
-from imputelab.scoring import ScoreOptions, score_table
-from imputelab.survey import SurveyOptions
+from imputelab.fill.frame import fill_table
+from imputelab.io.tables import read_table, write_table
+from imputelab.report.page import write_report
+from imputelab.score.build import ScoreOptions, score_table
+from imputelab.survey.table import SurveyOptions
 
 DEMO_TARGET = "spoiled"
 DEMO_CODES = {"driver_rating": [99]}

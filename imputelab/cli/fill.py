@@ -18,16 +18,16 @@ from imputelab.cli._common import (
     progress_bar,
 )
 from imputelab.cli._options import FileArg, JsonOpt, QuietOpt
-from imputelab.cluster import open_executor
-from imputelab.cluster_fill import cluster_fill
-from imputelab.draws import write_draws
 from imputelab.errors import OptionError
-from imputelab.fill import FillReport, FittedFill, fill_table
-from imputelab.io import read_table, table_format, write_table
-from imputelab.model import fill_with_model, load_model
-from imputelab.plan import Plan
-from imputelab.streaming import DEFAULT_CHUNK_ROWS, DEFAULT_FIT_SAMPLE, stream_fill
-from imputelab.streaming import fit_sample as sample_and_fit
+from imputelab.executors.pool import open_executor
+from imputelab.fill.frame import FillReport, FittedFill, fill_table
+from imputelab.fill.multiple import write_draws
+from imputelab.fill.partitioned import cluster_fill
+from imputelab.fill.saved import fill_with_model, load_model
+from imputelab.fill.streamed import DEFAULT_CHUNK_ROWS, DEFAULT_FIT_SAMPLE, stream_fill
+from imputelab.fill.streamed import fit_sample as sample_and_fit
+from imputelab.io.tables import read_table, table_format, write_table
+from imputelab.score.plan import Plan
 
 
 def report_rich_table(report: FillReport) -> RichTable:

@@ -10,9 +10,9 @@ from rich.table import Table as RichTable
 
 from imputelab.cli._common import err, handle_errors, out, print_json
 from imputelab.cli._options import FileArg, JsonOpt, QuietOpt
-from imputelab.io import read_table
-from imputelab.model import SavedModel, fit_table, save_model
-from imputelab.plan import Plan
+from imputelab.fill.saved import SavedModel, fit_table, save_model
+from imputelab.io.tables import read_table
+from imputelab.score.plan import Plan
 
 
 def model_rich_table(model: SavedModel) -> RichTable:

@@ -20,9 +20,9 @@ from imputelab.cli._options import (
     TargetOpt,
     survey_options,
 )
-from imputelab.io import read_table
-from imputelab.plan import Plan
-from imputelab.report import SECTIONS, survey_options_for, write_report
+from imputelab.io.tables import read_table
+from imputelab.report.page import SECTIONS, survey_options_for, write_report
+from imputelab.score.plan import Plan
 
 
 def report_summary(path: Path) -> dict[str, object]:

@@ -32,14 +32,14 @@ from imputelab.cli._options import (
     survey_options,
 )
 from imputelab.cli.report import report_line
-from imputelab.cluster import open_executor
 from imputelab.errors import OptionError
-from imputelab.io import read_table
-from imputelab.metrics import PRIMARY, get_metric
-from imputelab.plan import Plan
-from imputelab.report import write_report
-from imputelab.scoring import ScoreOptions, score_table
-from imputelab.survey import DEFAULT_DROP_THRESHOLD
+from imputelab.executors.pool import open_executor
+from imputelab.io.tables import read_table
+from imputelab.metrics.scores import PRIMARY, get_metric
+from imputelab.report.page import write_report
+from imputelab.score.build import ScoreOptions, score_table
+from imputelab.score.plan import Plan
+from imputelab.survey.table import DEFAULT_DROP_THRESHOLD
 
 SHORT = {"constant": "const", "chained-linear": "linear", "chained-forest": "forest",
          "chained-boosted": "boosted"}

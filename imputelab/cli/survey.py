@@ -18,9 +18,9 @@ from imputelab.cli._options import (
     TargetOpt,
     survey_options,
 )
-from imputelab.diagnostics import CAUTION
-from imputelab.io import read_table
-from imputelab.survey import DEFAULT_DROP_THRESHOLD, Survey, survey_table
+from imputelab.io.tables import read_table
+from imputelab.survey.diagnostics import CAUTION
+from imputelab.survey.table import DEFAULT_DROP_THRESHOLD, Survey, survey_table
 
 
 def survey_rich_table(survey: Survey) -> RichTable:

@@ -1,6 +1,6 @@
 """The contract every fill method keeps.
 
-A method works on a working frame (see :mod:`imputelab.encoding`): ``float64`` columns and
+A method works on a working frame (see :mod:`imputelab.frame.encoding`): ``float64`` columns and
 unordered ``Categorical`` columns. ``fit(X, targets)`` learns how to fill the ``targets``
 columns (every other column may serve as a feature); ``transform(X)`` returns a copy of ``X``
 in which only the missing cells of those columns have changed.
@@ -147,7 +147,7 @@ class FillMethod(BaseEstimator, abc.ABC):
                 out[name] = column
         return out
 
-    # -- saved models (see imputelab.methods._state) ------------------------------------------
+    # -- saved models (see imputelab.methods.state) ------------------------------------------
     def _export_state(self) -> dict[str, Any]:
         """The fitted state as plain data: dicts, lists, scalars, numpy arrays, booster text.
 

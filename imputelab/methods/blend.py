@@ -31,7 +31,7 @@ import numpy as np
 import pandas as pd
 from sklearn.utils import check_random_state
 
-from imputelab.encoding import is_categorical
+from imputelab.frame.encoding import is_categorical
 from imputelab.methods.base import FillMethod
 from imputelab.methods.chained import ChainedBoostedFill, ChainedForestFill, ChainedLinearFill
 

@@ -31,12 +31,12 @@ from sklearn.linear_model import BayesianRidge, LogisticRegression
 from sklearn.utils import check_random_state
 from sklearn.utils.validation import check_is_fitted
 
-from imputelab.encoding import derived_from, is_categorical
 from imputelab.errors import DataError
-from imputelab.methods._design import Design, column_stats, frequent_levels
-from imputelab.methods._state import BoosterModel, export_estimator, import_estimator
+from imputelab.frame.encoding import derived_from, is_categorical
 from imputelab.methods.base import FillMethod
+from imputelab.methods.design import Design, column_stats, frequent_levels
 from imputelab.methods.simple import most_frequent
+from imputelab.methods.state import BoosterModel, export_estimator, import_estimator
 
 __all__ = ["ChainedBoostedFill", "ChainedForestFill", "ChainedLinearFill"]
 
@@ -259,7 +259,7 @@ class _ChainedFill(FillMethod):
         self._fitted_state = None
         return self
 
-    # -- multiple imputation (imputelab.draws) -----------------------------------------------
+    # -- multiple imputation (imputelab.fill.multiple) ----------------------------------------
     # ``draw(model, features, donor_target, donor_features, categorical)`` stands in for
     # ``model.predict(features)`` at every hole-filling step: ``donor_target`` holds the
     # column's observed values (label codes for labels), ``donor_features()`` builds the

@@ -9,10 +9,10 @@ import pandas as pd
 from sklearn.impute import KNNImputer
 from sklearn.utils import check_random_state
 
-from imputelab.encoding import is_categorical
-from imputelab.methods._design import Design, column_stats, frequent_levels
-from imputelab.methods._state import export_knn, import_knn
+from imputelab.frame.encoding import is_categorical
 from imputelab.methods.base import FillMethod
+from imputelab.methods.design import Design, column_stats, frequent_levels
+from imputelab.methods.state import export_knn, import_knn
 
 __all__ = ["KNNFill"]
 

@@ -7,7 +7,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from imputelab.encoding import is_categorical
+from imputelab.frame.encoding import is_categorical
 from imputelab.methods.base import FillMethod
 
 __all__ = ["ConstantFill", "MeanFill", "MedianFill", "ModeFill"]

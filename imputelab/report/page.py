@@ -6,7 +6,7 @@ engine (as ``imputelab fill`` would), takes the survey's evidence, and returns t
 come from the plan.
 
 The page needs nothing outside itself: the style sheet is inline, the charts are inline SVG
-made by :mod:`imputelab.charts`, there is no script, and a Content-Security-Policy forbids
+made by :mod:`imputelab.report.charts`, there is no script, and a Content-Security-Policy forbids
 the browser to fetch anything. Every piece of text that comes from the file (column names,
 labels, rules) is escaped with :func:`html.escape`.
 
@@ -29,14 +29,14 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from imputelab.diagnostics import CAUTION, missing_patterns
 from imputelab.errors import OptionError
-from imputelab.experiment import derive_seed
-from imputelab.fill import FillReport, checked_clean, fill_frame
-from imputelab.io import Table, atomic_path
-from imputelab.metrics import get_metric
-from imputelab.plan import Plan
-from imputelab.survey import DEFAULT_DROP_THRESHOLD, Survey, SurveyOptions, survey_table
+from imputelab.fill.frame import FillReport, checked_clean, fill_frame
+from imputelab.io.tables import Table, atomic_path
+from imputelab.metrics.scores import get_metric
+from imputelab.score.experiment import derive_seed
+from imputelab.score.plan import Plan
+from imputelab.survey.diagnostics import CAUTION, missing_patterns
+from imputelab.survey.table import DEFAULT_DROP_THRESHOLD, Survey, SurveyOptions, survey_table
 
 __all__ = ["MAP_ROWS", "SECTIONS", "build_report", "survey_options_for", "write_report"]
 
@@ -91,7 +91,7 @@ class _Facts:
     typed: pd.DataFrame  # the file as the plan reads it
     filled: pd.DataFrame  # after the plan's fill (dropped columns removed)
     fill: FillReport
-    charts: Any  # the imputelab.charts module, imported when a report is made
+    charts: Any  # the imputelab.report.charts module, imported when a report is made
     figures: list[str] = field(default_factory=list)
 
     def blank(self) -> pd.DataFrame:
@@ -700,7 +700,7 @@ def build_report(
     str
         The page: UTF-8 text, the same for the same inputs.
     """
-    import imputelab.charts as charts  # matplotlib loads only when a report is made
+    import imputelab.report.charts as charts  # matplotlib loads only when a report is made
 
     # The plan as written to plan.json (numbers rounded), so a report made by score and one
     # made later from the saved file are the same page.

@@ -54,10 +54,10 @@ from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import OneHotEncoder, StandardScaler
 from threadpoolctl import threadpool_limits
 
-from imputelab.encoding import is_categorical, with_derived
 from imputelab.errors import DataError, OptionError
-from imputelab.experiment import derive_seed
+from imputelab.frame.encoding import is_categorical, with_derived
 from imputelab.methods import get_method
+from imputelab.score.experiment import derive_seed
 
 __all__ = [
     "INDICATOR_SUFFIX",
@@ -431,7 +431,7 @@ def run_target_experiment(
     Parameters
     ----------
     working : DataFrame
-        Working frame (see :mod:`imputelab.encoding`) of the feature columns. It must not hold
+        Working frame (see :mod:`imputelab.frame.encoding`) of the feature columns. It must not hold
         the target: the target scores the models and never reaches a fill method.
     kinds : mapping
         Kind of every working column.

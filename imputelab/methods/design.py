@@ -13,7 +13,7 @@ from collections.abc import Collection
 import numpy as np
 import pandas as pd
 
-from imputelab.encoding import is_categorical
+from imputelab.frame.encoding import is_categorical
 
 __all__ = ["MAX_ONEHOT", "Design", "column_stats", "frequent_levels"]
 

@@ -21,12 +21,12 @@ import numpy as np
 import pandas as pd
 from threadpoolctl import threadpool_limits
 
-from imputelab.cluster import Executor, JoblibExecutor
-from imputelab.encoding import is_categorical, with_derived
+from imputelab.executors.pool import Executor, JoblibExecutor
+from imputelab.frame.encoding import is_categorical, with_derived
 from imputelab.masks import get_mask
 from imputelab.methods import get_method
 from imputelab.methods.blend import COMPONENTS, fit_blend
-from imputelab.metrics import correlation_shift, score_cells, variance_ratio
+from imputelab.metrics.scores import correlation_shift, score_cells, variance_ratio
 
 __all__ = ["ExperimentResult", "derive_seed", "draw_hidden", "run_experiment"]
 
@@ -215,7 +215,7 @@ def run_experiment(
     Parameters
     ----------
     working : DataFrame
-        Working frame (see :mod:`imputelab.encoding`) of the columns methods may use.
+        Working frame (see :mod:`imputelab.frame.encoding`) of the columns methods may use.
     kinds : mapping
         Kind of every working column.
     columns : sequence of str
@@ -239,7 +239,7 @@ def run_experiment(
     keep_fills : bool
         Keep every method's fills (:attr:`ExperimentResult.fills`).
     executor : Executor, optional
-        Where the tasks run (:mod:`imputelab.cluster`), e.g. a Dask cluster; by default
+        Where the tasks run (:mod:`imputelab.executors.pool`), e.g. a Dask cluster; by default
         ``n_jobs`` local processes. The scores do not depend on it.
 
     Returns

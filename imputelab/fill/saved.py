@@ -4,7 +4,7 @@ A model is a directory that loads without running any code from it: no pickle an
 Fitted numbers are JSON and one ``.npz`` of numeric arrays (read with
 ``allow_pickle=False``), LightGBM models are LightGBM's own text format, and scikit-learn
 estimators are rebuilt from their parameters and fitted arrays, only for the classes in
-:data:`imputelab.methods._state.TRUSTED_ESTIMATORS`::
+:data:`imputelab.methods.state.TRUSTED_ESTIMATORS`::
 
     DIR/
       manifest.json    {"format": "imputelab-model", "version": 1,
@@ -66,9 +66,8 @@ import lightgbm as lgb
 import numpy as np
 import pandas as pd
 
-from imputelab.encoding import Encoding
 from imputelab.errors import DataError, ImputelabError, OptionError, PlanError, TableIOError
-from imputelab.fill import (
+from imputelab.fill.frame import (
     FillReport,
     FittedFill,
     _Group,
@@ -79,12 +78,13 @@ from imputelab.fill import (
     missing_indicators,
     render_text,
 )
-from imputelab.io import Table
-from imputelab.kinds import MISSING_TOKENS
+from imputelab.frame.encoding import Encoding
+from imputelab.io.columns import MISSING_TOKENS
+from imputelab.io.tables import Table
 from imputelab.methods import METHODS
-from imputelab.methods._state import BoosterText
 from imputelab.methods.simple import most_frequent
-from imputelab.plan import Plan
+from imputelab.methods.state import BoosterText
+from imputelab.score.plan import Plan
 
 __all__ = [
     "MODEL_FORMAT",
@@ -717,7 +717,7 @@ def fill_with_model(
 ) -> tuple[pd.DataFrame, ModelFillReport]:
     """Check a new table against a saved model, clean it by the model's plan and fill it.
 
-    The methods are not refitted. The output is built exactly as :func:`imputelab.fill.
+    The methods are not refitted. The output is built exactly as :func:`imputelab.fill.frame.
     fill_table` builds it, so on the training file both give the same table.
 
     Parameters

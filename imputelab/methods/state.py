@@ -3,7 +3,7 @@
 A method's :meth:`~imputelab.methods.base.FillMethod._export_state` returns a tree of dicts,
 lists, tuples, JSON scalars, numpy scalars, numpy arrays (numbers, booleans or fixed-width
 text: never objects) and :class:`BoosterText`; ``_import_state`` rebuilds the method from the
-same tree. Writing the tree to files is the engine's business (:mod:`imputelab.model`).
+same tree. Writing the tree to files is the engine's business (:mod:`imputelab.fill.saved`).
 
 scikit-learn estimators are rebuilt from their constructor parameters and fitted attributes,
 and only the classes in :data:`TRUSTED_ESTIMATORS`: nothing in a saved model can name a class

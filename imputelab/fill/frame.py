@@ -11,14 +11,14 @@ import numpy as np
 import pandas as pd
 from threadpoolctl import threadpool_limits
 
-from imputelab.encoding import Encoding, with_derived
 from imputelab.errors import DataError, ImputelabError, PlanError
-from imputelab.experiment import derive_seed
-from imputelab.io import Table
-from imputelab.kinds import ColumnSpec, clean_column
+from imputelab.frame.encoding import Encoding, with_derived
+from imputelab.frame.setup import working_setup
+from imputelab.io.columns import ColumnSpec, clean_column
+from imputelab.io.tables import Table
 from imputelab.methods import METHODS, get_method, get_method_names
-from imputelab.plan import Plan
-from imputelab.prepare import working_setup
+from imputelab.score.experiment import derive_seed
+from imputelab.score.plan import Plan
 
 __all__ = [
     "INDICATOR_SUFFIX",

@@ -1,13 +1,13 @@
 """``bench``: every method, the chosen plan and scikit-learn's imputers on open datasets.
 
-For each dataset (see :mod:`imputelab.datasets`) the benchmark takes the rows complete over
+For each dataset (see :mod:`imputelab.bench.datasets`) the benchmark takes the rows complete over
 its benchmark columns, then:
 
-1. **chooses a plan** with :func:`imputelab.scoring.score_table` on its own mask draws (seed
+1. **chooses a plan** with :func:`imputelab.score.build.score_table` on its own mask draws (seed
    derived from ``(seed, "selection")``), so the plan never sees the cells it is scored on;
 2. **hides cells** under each mask, ``repeats`` times (the experiment's seeds
    ``(seed, mask, repeat)``), and fills the same hidden cells with every imputelab method
-   (:func:`imputelab.experiment.run_experiment`), with the plan (each column takes its
+   (:func:`imputelab.score.experiment.run_experiment`), with the plan (each column takes its
    method's fill of that draw; a ``blend`` column combines the draw's component fills with
    the plan's weights), and with the scikit-learn references of :data:`REFERENCES`;
 3. for the ``gaussian`` set, computes the Bayes floor: the conditional mean of the hidden
@@ -41,19 +41,19 @@ import pandas as pd
 from joblib import Parallel, delayed
 from threadpoolctl import threadpool_limits
 
-from imputelab.datasets import Dataset, dataset_names, gaussian_parameters, load_dataset
-from imputelab.encoding import is_categorical
+from imputelab.bench.datasets import Dataset, dataset_names, gaussian_parameters, load_dataset
 from imputelab.errors import OptionError
-from imputelab.experiment import ExperimentResult, derive_seed, run_experiment
-from imputelab.io import atomic_path, read_table
+from imputelab.frame.encoding import is_categorical
+from imputelab.frame.setup import default_action, working_setup
+from imputelab.io.tables import atomic_path, read_table
 from imputelab.masks import get_mask_names
 from imputelab.methods import get_method_names
 from imputelab.methods.blend import COMPONENTS
-from imputelab.metrics import nrmse, pfc
-from imputelab.plan import Plan
-from imputelab.prepare import default_action, working_setup
-from imputelab.scoring import CHOICE_RULES, ScoreOptions, plan_from_experiment, score_table
-from imputelab.survey import SurveyOptions
+from imputelab.metrics.scores import nrmse, pfc
+from imputelab.score.build import CHOICE_RULES, ScoreOptions, plan_from_experiment, score_table
+from imputelab.score.experiment import ExperimentResult, derive_seed, run_experiment
+from imputelab.score.plan import Plan
+from imputelab.survey.table import SurveyOptions
 
 __all__ = ["REFERENCES", "BenchOptions", "bayes_floor_fill", "plain_data", "run_bench",
            "write_bench"]
@@ -595,7 +595,7 @@ def results_markdown(results: Mapping[str, Any], command: str = "") -> str:
 
 
 def _plot(results: Mapping[str, Any], path: Path) -> None:
-    import imputelab.charts as charts  # matplotlib loads only when a plot is drawn
+    import imputelab.report.charts as charts  # matplotlib loads only when a plot is drawn
 
     cells = [(f"{n} {m}", s) for n, e in results["datasets"].items()
              for m, s in e["masks"].items()]

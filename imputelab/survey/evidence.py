@@ -1,6 +1,6 @@
 """What the blanks mean: the survey's evidence about every column's missing cells.
 
-One pass over the typed table gathers what the diagnostics in :mod:`imputelab.diagnostics`
+One pass over the typed table gathers what the diagnostics in :mod:`imputelab.survey.diagnostics`
 can say:
 
 * Little's MCAR test on the numeric columns;
@@ -24,7 +24,9 @@ import pandas as pd
 from joblib import Parallel, delayed
 from threadpoolctl import threadpool_limits
 
-from imputelab.diagnostics import (
+from imputelab.frame.encoding import Encoding, derived_from, with_derived
+from imputelab.io.columns import IMPUTABLE_KINDS, ColumnSpec
+from imputelab.survey.diagnostics import (
     LittleTest,
     MissingnessCheck,
     PatternTable,
@@ -38,8 +40,6 @@ from imputelab.diagnostics import (
     missingness_predictability,
     top_co_missing,
 )
-from imputelab.encoding import Encoding, derived_from, with_derived
-from imputelab.kinds import IMPUTABLE_KINDS, ColumnSpec
 
 __all__ = ["MAX_PATTERNS_SHOWN", "Evidence", "gather_evidence"]
 

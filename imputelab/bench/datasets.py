@@ -24,7 +24,7 @@ from imputelab.errors import DataError, OptionError
 __all__ = ["META_DIR", "Dataset", "dataset_names", "gaussian_parameters", "load_dataset",
            "read_meta"]
 
-META_DIR = Path(__file__).resolve().parent.parent / "datasets_meta"
+META_DIR = Path(__file__).resolve().parents[2] / "datasets_meta"
 
 
 @dataclass

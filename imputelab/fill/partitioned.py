@@ -4,16 +4,16 @@ The input is a CSV file, a Parquet file, or a folder of Parquet files (read in n
 as one table: the rows of the first file, then the second's...). ``dask.dataframe`` reads it
 in partitions (:func:`dask.dataframe.from_map`): a Parquet row group each, or a byte range
 of a CSV file cut at a row's end. Every partition is exactly the frame
-:func:`imputelab.io.read_table` would give for those rows, so the fill applied to it with
+:func:`imputelab.io.tables.read_table` would give for those rows, so the fill applied to it with
 ``map_partitions`` (clean by the plan, fill with the fitted methods, add the indicators: the
-steps of :func:`imputelab.streaming.stream_fill`) gives the values of the single-machine
+steps of :func:`imputelab.fill.streamed.stream_fill`) gives the values of the single-machine
 fill. The output is a folder of Parquet files, one a partition (``part-00000.parquet``, ...;
 read back in name order they are the table), written into a temporary folder beside ``--out``
 and renamed into place when every partition is done.
 
 The fitted methods are shipped to the workers once (scattered), by Dask's own serialization:
 they are objects this process built (fitted here, or loaded by
-:func:`imputelab.model.load_model`, which reads no pickle). Every worker must see the input
+:func:`imputelab.fill.saved.load_model`, which reads no pickle). Every worker must see the input
 and the output folder at the same path (one machine, or a shared file system).
 
 A CSV file is cut between rows by counting quotes: a line break ends a row when an even
@@ -39,12 +39,10 @@ import pyarrow as pa
 import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
 
-from imputelab.cluster import worker_result
 from imputelab.errors import DataError, OptionError, TableIOError
-from imputelab.fill import FillReport, FittedFill, _specs, check_plan, finish_output
-from imputelab.io import Table, _short_reason
-from imputelab.plan import Plan
-from imputelab.streaming import (
+from imputelab.executors.pool import worker_result
+from imputelab.fill.frame import FillReport, FittedFill, _specs, check_plan, finish_output
+from imputelab.fill.streamed import (
     _CsvChunks,
     _Framer,
     _Job,
@@ -52,6 +50,8 @@ from imputelab.streaming import (
     csv_options,
     fill_chunk,
 )
+from imputelab.io.tables import Table, _short_reason
+from imputelab.score.plan import Plan
 
 __all__ = ["DEFAULT_PARTITION_BYTES", "cluster_fill", "partitions"]
 
@@ -251,8 +251,8 @@ def cluster_fill(
     out_dir : path-like
         The output folder: it must not exist yet.
     fitted : FittedFill
-        Fitted methods (:func:`imputelab.fill.fit_plan`, :func:`imputelab.streaming.fit_sample`
-        or a loaded model's ``fitted``).
+        Fitted methods (:func:`imputelab.fill.frame.fit_plan`,
+        :func:`imputelab.fill.streamed.fit_sample` or a loaded model's ``fitted``).
     plan : Plan
         The plan ``fitted`` was made from.
     client : distributed.Client

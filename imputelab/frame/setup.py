@@ -6,8 +6,8 @@ from collections.abc import Mapping
 
 import pandas as pd
 
-from imputelab.encoding import Encoding
-from imputelab.kinds import IMPUTABLE_KINDS, ColumnSpec
+from imputelab.frame.encoding import Encoding
+from imputelab.io.columns import IMPUTABLE_KINDS, ColumnSpec
 
 __all__ = ["default_action", "working_setup"]
 

@@ -1,9 +1,9 @@
 """Fills of files larger than memory: one pass to sample rows for fitting, one pass to fill.
 
 A CSV file is read with :func:`pyarrow.csv.open_csv` (every column as text, as
-:func:`imputelab.io.read_table` reads it) and a Parquet file with
+:func:`imputelab.io.tables.read_table` reads it) and a Parquet file with
 :meth:`pyarrow.parquet.ParquetFile.iter_batches`. Every chunk becomes exactly the frame
-:func:`~imputelab.io.read_table` would give for those rows, goes through the plan's cleaning,
+:func:`~imputelab.io.tables.read_table` would give for those rows, goes through the plan's cleaning,
 the fitted methods, the missing indicators and (CSV) the text rendering of the in-memory
 fill, and is appended to the output; memory stays flat in the file's size. The output is the
 same, byte for byte for CSV and value for value (same schema) for Parquet, as the in-memory
@@ -36,8 +36,7 @@ import pyarrow.parquet as pq
 from joblib import Parallel, delayed
 
 from imputelab.errors import DataError, OptionError, TableIOError
-from imputelab.experiment import derive_seed
-from imputelab.fill import (
+from imputelab.fill.frame import (
     FillReport,
     FittedFill,
     _format,
@@ -48,7 +47,7 @@ from imputelab.fill import (
     fit_plan,
     missing_indicators,
 )
-from imputelab.io import (
+from imputelab.io.tables import (
     _SNIFF_BYTES,
     Table,
     _check_header,
@@ -60,7 +59,8 @@ from imputelab.io import (
     file_fingerprint,
     table_format,
 )
-from imputelab.plan import Plan
+from imputelab.score.experiment import derive_seed
+from imputelab.score.plan import Plan
 
 __all__ = [
     "DEFAULT_CHUNK_ROWS",
@@ -504,15 +504,15 @@ def reservoir_sample(
     Returns
     -------
     Table
-        The sampled rows in file order, exactly as :func:`~imputelab.io.read_table` reads
+        The sampled rows in file order, exactly as :func:`~imputelab.io.tables.read_table` reads
         them (CSV: text, same delimiter and decimal mark), indexed by their 0-based position
         in the file. Its ``fingerprint`` is that of the whole file, so
-        :func:`~imputelab.fill.check_plan` can compare it with a plan.
+        :func:`~imputelab.fill.frame.check_plan` can compare it with a plan.
 
     Raises
     ------
     TableIOError
-        As :func:`~imputelab.io.read_table`.
+        As :func:`~imputelab.io.tables.read_table`.
     OptionError
         When ``n`` or ``seed`` is out of range.
 
@@ -600,7 +600,7 @@ def fit_sample(
 ) -> tuple[FittedFill, FillReport]:
     """Fit a plan's methods on a reservoir sample of a file (see :func:`reservoir_sample`).
 
-    The sample is checked against the plan as :func:`~imputelab.fill.fill_table` checks a
+    The sample is checked against the plan as :func:`~imputelab.fill.frame.fill_table` checks a
     file (fingerprint and columns; ``force`` lets a mismatch through with a warning). A file
     of at most ``n`` rows is fitted whole, so the fill equals the in-memory one.
 
@@ -939,7 +939,7 @@ def stream_fill(
 ) -> FillReport:
     """Fill a file chunk by chunk with fitted methods and write the result, atomically.
 
-    Each chunk is read as :func:`~imputelab.io.read_table` reads the file, cleaned by the
+    Each chunk is read as :func:`~imputelab.io.tables.read_table` reads the file, cleaned by the
     plan, filled by ``fitted`` (no refitting), given the plan's missing indicators and, for
     CSV to CSV, written with every observed cell's original text. The output equals what
     ``fill_table(read_table(path), plan, fit_on=...)`` and ``write_table`` give when
@@ -954,7 +954,7 @@ def stream_fill(
         Output ``.csv`` or ``.parquet``. CSV output from CSV input keeps the input's
         delimiter; from Parquet input it is comma-separated.
     fitted : FittedFill
-        Methods fitted by :func:`fit_sample` or :func:`~imputelab.fill.fit_plan`.
+        Methods fitted by :func:`fit_sample` or :func:`~imputelab.fill.frame.fit_plan`.
     plan : Plan
         The plan ``fitted`` was made from (its cleaning and indicators apply).
     chunk_rows : int
@@ -988,7 +988,7 @@ def stream_fill(
     Examples
     --------
     >>> import tempfile, pathlib
-    >>> from imputelab.plan import ColumnPlan, Plan
+    >>> from imputelab.score.plan import ColumnPlan, Plan
     >>> folder = pathlib.Path(tempfile.mkdtemp())
     >>> _ = (folder / "t.csv").write_text("a,b\\n1,x\\n,y\\n3,x\\n")
     >>> plan = Plan(source={}, settings={}, columns={

@@ -11,20 +11,20 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from imputelab.cluster import Executor
-from imputelab.diagnostics import ABSENT_LABEL
-from imputelab.encoding import Encoding
 from imputelab.errors import OptionError
-from imputelab.experiment import ExperimentResult, derive_seed, run_experiment
-from imputelab.io import Table
+from imputelab.executors.pool import Executor
+from imputelab.frame.encoding import Encoding
+from imputelab.frame.setup import default_action, working_setup
+from imputelab.io.tables import Table
 from imputelab.masks import get_mask_names
 from imputelab.methods import METHODS, get_method_names
 from imputelab.methods.blend import COMPONENTS
-from imputelab.metrics import PRIMARY, get_metric
-from imputelab.plan import ColumnPlan, Plan, choose_method
-from imputelab.prepare import default_action, working_setup
-from imputelab.survey import ColumnSurvey, Survey, SurveyOptions, survey_table
-from imputelab.target_experiment import run_target_experiment
+from imputelab.metrics.scores import PRIMARY, get_metric
+from imputelab.score.experiment import ExperimentResult, derive_seed, run_experiment
+from imputelab.score.plan import ColumnPlan, Plan, choose_method
+from imputelab.score.target import run_target_experiment
+from imputelab.survey.diagnostics import ABSENT_LABEL
+from imputelab.survey.table import ColumnSurvey, Survey, SurveyOptions, survey_table
 
 __all__ = ["CHOOSE_BY", "DEFAULT_MASKS", "ScoreOptions", "plan_from_experiment", "score_table"]
 
@@ -78,7 +78,7 @@ class ScoreOptions:
         ``balanced``, the mean of nrmse (pfc for labels) and ``distribution``.
     downstream : bool
         With a target, also score every fill by cross-validated models of the target
-        (:mod:`imputelab.target_experiment`); the target never fills a feature there.
+        (:mod:`imputelab.score.target`); the target never fills a feature there.
     downstream_folds : int
         Folds of that experiment.
     choice_rule : {"table", "paired", "unpaired"}
@@ -461,7 +461,7 @@ def score_table(
     progress : callable, optional
         ``progress(done, total)`` after each experiment task.
     executor : Executor, optional
-        Where the experiment's tasks run (:mod:`imputelab.cluster`, e.g. a Dask cluster);
+        Where the experiment's tasks run (:mod:`imputelab.executors.pool`, e.g. a Dask cluster);
         by default ``options.n_jobs`` local processes. The plan does not depend on it. The
         survey's checks and the model experiment run here, with ``options.n_jobs``.
 

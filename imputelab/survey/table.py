@@ -9,11 +9,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from imputelab.diagnostics import CAUTION
 from imputelab.errors import DataError, OptionError
-from imputelab.evidence import Evidence, gather_evidence
-from imputelab.io import Table
-from imputelab.kinds import (
+from imputelab.io.columns import (
     IMPUTABLE_KINDS,
     ColumnSpec,
     clean_column,
@@ -23,6 +20,9 @@ from imputelab.kinds import (
     parse_numbers,
     suspected_codes,
 )
+from imputelab.io.tables import Table
+from imputelab.survey.diagnostics import CAUTION
+from imputelab.survey.evidence import Evidence, gather_evidence
 
 __all__ = ["ColumnSurvey", "Survey", "SurveyOptions", "check_columns", "survey_table"]
 
@@ -55,7 +55,7 @@ class SurveyOptions:
     target : str, optional
         The column a later model will predict.
     diagnostics : bool
-        Gather the evidence about what the blanks mean (:mod:`imputelab.evidence`): Little's
+        Gather the evidence about what the blanks mean (:mod:`imputelab.survey.evidence`): Little's
         test, the pattern table, the predictability of every column's blanks, structural
         rules. Off, the survey is only kinds, counts, tokens and codes.
     n_jobs : int
@@ -169,7 +169,7 @@ def survey_table(table: Table, options: SurveyOptions | None = None) -> Survey:
     Parameters
     ----------
     table : Table
-        As read by :func:`imputelab.io.read_table`.
+        As read by :func:`imputelab.io.tables.read_table`.
     options : SurveyOptions, optional
 
     Returns

@@ -2,7 +2,7 @@
 
 A single fill treats its guesses as data, so every analysis of it is too sure of itself.
 Drawing each hole from its method's predictive distribution M times, analysing each completed
-table and pooling by Rubin's rules (:func:`imputelab.pooling.pool`) carries the uncertainty
+table and pooling by Rubin's rules (:func:`imputelab.fill.pooling.pool`) carries the uncertainty
 of the fill into the result (Rubin 1987, *Multiple Imputation for Nonresponse in Surveys*).
 
 How each method draws
@@ -72,9 +72,8 @@ from sklearn.linear_model import BayesianRidge, LogisticRegression
 from sklearn.neighbors import NearestNeighbors
 from threadpoolctl import ThreadpoolController
 
-from imputelab.encoding import is_categorical, with_derived
 from imputelab.errors import DataError, OptionError, PlanError
-from imputelab.fill import (
+from imputelab.fill.frame import (
     FillReport,
     FittedFill,
     _finish,
@@ -84,8 +83,8 @@ from imputelab.fill import (
     finish_output,
     fit_plan,
 )
-from imputelab.io import Table, write_table
-from imputelab.methods._design import Design
+from imputelab.frame.encoding import is_categorical, with_derived
+from imputelab.io.tables import Table, write_table
 from imputelab.methods.chained import (
     ChainedBoostedFill,
     ChainedForestFill,
@@ -93,9 +92,10 @@ from imputelab.methods.chained import (
     _Constant,
     _Standardised,
 )
+from imputelab.methods.design import Design
 from imputelab.methods.knn import KNNFill
 from imputelab.methods.simple import ConstantFill, MeanFill, MedianFill, ModeFill
-from imputelab.plan import Plan
+from imputelab.score.plan import Plan
 
 __all__ = ["DRAW_KINDS", "N_DONORS", "draw_datasets", "iter_draws", "write_draws"]
 
@@ -114,9 +114,9 @@ def draw_datasets(fitted: FittedFill, typed: pd.DataFrame, m: int, *, seed: int,
     Parameters
     ----------
     fitted : FittedFill
-        A plan's fitted methods (:func:`imputelab.fill.fit_plan`).
+        A plan's fitted methods (:func:`imputelab.fill.frame.fit_plan`).
     typed : DataFrame
-        Cleaned table to fill (:func:`imputelab.fill.clean_with_plan`).
+        Cleaned table to fill (:func:`imputelab.fill.frame.clean_with_plan`).
     m : int
         Number of completed tables.
     seed : int
@@ -430,7 +430,7 @@ def write_draws(
 ) -> tuple[list[Path], FillReport, dict[str, Any]]:
     """Write ``m`` completed copies of a table, each filled with fresh random draws.
 
-    The table is checked and cleaned as :func:`~imputelab.fill.fill_table` does; the plan's
+    The table is checked and cleaned as :func:`~imputelab.fill.frame.fill_table` does; the plan's
     methods are fitted on it (proper chained-equations draws, ``refit=True``) or, with
     ``fit_on``, on the reference and then replayed on the table (``refit=False``). File ``i``
     is ``out_dir/<stem>_draw<i>.<ext>`` in the table's own format, with the plan's indicator

@@ -25,9 +25,9 @@ from pathlib import Path
 from typing import Any
 
 from imputelab.errors import PlanError
-from imputelab.io import atomic_path
-from imputelab.kinds import KINDS
-from imputelab.metrics import PRIMARY
+from imputelab.io.columns import KINDS
+from imputelab.io.tables import atomic_path
+from imputelab.metrics.scores import PRIMARY
 
 __all__ = [
     "ACTIONS",
@@ -80,7 +80,7 @@ class ColumnPlan:
     skipped : dict
         Methods that could not fill the column, with the reason.
     cleaning : dict
-        How cells were read: see :class:`imputelab.kinds.ColumnSpec`.
+        How cells were read: see :class:`imputelab.io.columns.ColumnSpec`.
     indicator : bool
         Add a 0/1 column ``NAME__was_missing`` beside the filled table (``fill``).
     evidence : dict

@@ -1,9 +1,9 @@
 """``PlanImputer``: a plan's fill as a scikit-learn transformer.
 
 ``fit`` learns on the training rows only: with a plan, it reads the rows by the plan's
-cleaning and fits the plan's methods (:func:`imputelab.fill.fit_plan`); with no plan, it first
+cleaning and fits the plan's methods (:func:`imputelab.fill.frame.fit_plan`); with no plan, it first
 scores the candidate methods on those rows and chooses one per column
-(:func:`imputelab.scoring.score_table`). ``transform`` fills any rows with the fitted methods,
+(:func:`imputelab.score.build.score_table`). ``transform`` fills any rows with the fitted methods,
 without refitting, so it can sit in a :class:`sklearn.pipeline.Pipeline` under cross-validation
 and never learn from a held-out fold.
 
@@ -30,7 +30,7 @@ from sklearn.utils._set_output import _get_output_config
 from sklearn.utils.validation import _check_feature_names_in, check_is_fitted, validate_data
 
 from imputelab.errors import PlanError
-from imputelab.fill import (
+from imputelab.fill.frame import (
     INDICATOR_SUFFIX,
     FillReport,
     clean_with_plan,
@@ -38,13 +38,13 @@ from imputelab.fill import (
     missing_indicators,
     render_text,
 )
-from imputelab.io import Table
-from imputelab.kinds import ColumnSpec, infer_spec
+from imputelab.io.columns import ColumnSpec, infer_spec
+from imputelab.io.tables import Table
 from imputelab.masks import get_mask_names
 from imputelab.methods import METHODS, get_method_names
-from imputelab.plan import Plan
-from imputelab.scoring import ScoreOptions, score_table
-from imputelab.survey import SurveyOptions
+from imputelab.score.build import ScoreOptions, score_table
+from imputelab.score.plan import Plan
+from imputelab.survey.table import SurveyOptions
 
 __all__ = ["PlanImputer"]
 
@@ -152,7 +152,7 @@ class PlanImputer(TransformerMixin, BaseEstimator):
     Examples
     --------
     >>> import numpy as np
-    >>> from imputelab.plan import ColumnPlan, Plan
+    >>> from imputelab.score.plan import ColumnPlan, Plan
     >>> plan = Plan(source={}, settings={"seed": 0}, columns={
     ...     "x0": ColumnPlan(kind="numeric", missing_fraction=0.5, action="impute",
     ...                      method="mean")})

@@ -42,7 +42,7 @@ import numpy as np
 import pandas as pd
 
 from imputelab.errors import DataError, OptionError
-from imputelab.kinds import IMPUTABLE_KINDS, KINDS
+from imputelab.io.columns import IMPUTABLE_KINDS, KINDS
 
 __all__ = [
     "ABSENT_LABEL",
