@@ -16,12 +16,13 @@ from threadpoolctl import threadpool_limits
 
 import imputelab.score.experiment as experiment
 from imputelab.errors import OptionError
+from imputelab.executors.seeds import derive_seed
 from imputelab.fill.frame import fill_table
 from imputelab.io.tables import read_table
 from imputelab.methods import get_method
 from imputelab.methods.simple import MedianFill
 from imputelab.score.build import ScoreOptions, score_table
-from imputelab.score.experiment import derive_seed, run_experiment
+from imputelab.score.experiment import run_experiment
 from imputelab.score.plan import Plan
 from imputelab.survey.table import SurveyOptions
 

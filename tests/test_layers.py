@@ -1,9 +1,9 @@
 """The import graph follows the layers DEVELOPERS.md draws, and has no cycles.
 
-cli -> engine stages -> parts -> nothing of ours (errors is shared by all). Each stage is one
-folder; a stage imports only the stages before it in ``STAGES`` (a plan is made before it is
-filled, and reported after). The check reads the source with :mod:`ast`, so it sees imports
-inside functions too.
+cli -> engine stages -> parts -> nothing of ours (errors and checks are shared by all). Each
+stage is one folder; a stage imports only the stages before it in ``STAGES`` (a plan is
+made before it is filled, and reported after). The check reads the source with :mod:`ast`, so it
+sees imports inside functions too.
 """
 
 from __future__ import annotations
@@ -32,7 +32,7 @@ def layer_of(module: str) -> str:
     if len(parts) == 1:
         return "api"  # imputelab/__init__.py re-exports the public names
     head = parts[1]
-    if head == "errors":
+    if head in ("errors", "checks"):  # exceptions and parameter checks
         return "errors"
     if head in ("cli", "__main__"):
         return "cli"
@@ -110,9 +110,9 @@ def test_no_private_module_is_imported_from_another_folder():
     assert not crossing, "\n".join(sorted(crossing))
 
 
-def test_top_level_holds_only_the_api_errors_and_folders():
+def test_top_level_holds_only_the_api_errors_checks_and_folders():
     loose = sorted(p.stem for p in PACKAGE.glob("*.py"))
-    assert loose == ["__init__", "__main__", "errors"]
+    assert loose == ["__init__", "__main__", "checks", "errors"]
 
 
 def test_parts_import_only_errors_and_other_parts():

@@ -19,9 +19,9 @@ from threadpoolctl import threadpool_limits
 
 import imputelab.score.target as target_experiment
 from imputelab.errors import DataError, OptionError
+from imputelab.executors.seeds import derive_seed
 from imputelab.methods import get_method
 from imputelab.methods.simple import MedianFill
-from imputelab.score.experiment import derive_seed
 from imputelab.score.target import NO_FILL, run_target_experiment
 
 CHEAP = ["mean", "median", "chained-linear"]

@@ -43,6 +43,7 @@ from threadpoolctl import threadpool_limits
 
 from imputelab.bench.datasets import Dataset, dataset_names, gaussian_parameters, load_dataset
 from imputelab.errors import OptionError
+from imputelab.executors.seeds import derive_seed
 from imputelab.frame.encoding import is_categorical
 from imputelab.frame.setup import default_action, working_setup
 from imputelab.io.tables import atomic_path, read_table
@@ -51,7 +52,7 @@ from imputelab.methods import get_method_names
 from imputelab.methods.blend import COMPONENTS
 from imputelab.metrics.scores import nrmse, pfc
 from imputelab.score.build import CHOICE_RULES, ScoreOptions, plan_from_experiment, score_table
-from imputelab.score.experiment import ExperimentResult, derive_seed, run_experiment
+from imputelab.score.experiment import ExperimentResult, run_experiment
 from imputelab.score.plan import Plan
 from imputelab.survey.table import SurveyOptions
 

@@ -15,6 +15,7 @@ import typer
 from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
 
+from imputelab.cli._flags import EXIT_BUG, EXIT_INTERRUPTED, EXIT_USAGE, as_flags
 from imputelab.errors import ImputelabError, OptionError
 
 F = TypeVar("F", bound=Callable[..., Any])
@@ -29,9 +30,14 @@ err = Console(stderr=True, highlight=False, markup=False)
 
 
 def fail(message: str) -> None:
-    """One line on stderr, exit code 2."""
-    err.print(f"imputelab: error: {message}", markup=False, soft_wrap=True)
-    raise typer.Exit(code=2)
+    """One line on stderr (core parameters shown as their flags), exit code 2."""
+    err.print(f"imputelab: error: {as_flags(message)}", markup=False, soft_wrap=True)
+    raise typer.Exit(code=EXIT_USAGE)
+
+
+def warn(message: str) -> None:
+    """A warning line on stderr (core parameters shown as their flags)."""
+    err.print(f"warning: {as_flags(message)}", markup=False, soft_wrap=True)
 
 
 def handle_errors(func: F) -> F:
@@ -49,7 +55,7 @@ def handle_errors(func: F) -> F:
             fail(str(exc))
         except KeyboardInterrupt:
             err.print("imputelab: interrupted")
-            raise typer.Exit(code=130) from None
+            raise typer.Exit(code=EXIT_INTERRUPTED) from None
         except typer.Exit:
             raise
         except Exception as exc:
@@ -60,7 +66,7 @@ def handle_errors(func: F) -> F:
                 "again with IMPUTELAB_DEBUG=1 for the traceback and report it)",
                 markup=False, soft_wrap=True,
             )
-            raise typer.Exit(code=1) from None
+            raise typer.Exit(code=EXIT_BUG) from None
 
     return wrapper  # type: ignore[return-value]
 

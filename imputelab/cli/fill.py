@@ -11,11 +11,11 @@ from rich.table import Table as RichTable
 
 from imputelab.cli._common import (
     check_output,
-    err,
     handle_errors,
     out,
     print_json,
     progress_bar,
+    warn,
 )
 from imputelab.cli._options import FileArg, JsonOpt, QuietOpt
 from imputelab.errors import OptionError
@@ -140,7 +140,7 @@ def _print_report(report: FillReport, out_path: Path, how: str, json: bool, quie
     if quiet:
         return
     for warning in report.warnings:
-        err.print(f"warning: {warning}", markup=False, soft_wrap=True)
+        warn(warning)
     out.print(report_rich_table(report))
     if report.dropped:
         out.print(f"Dropped: {', '.join(report.dropped)}")
@@ -168,7 +168,7 @@ def _fill_draws(file: Path, out_dir: Path, plan_path: Path | None, model_path: P
     if quiet:
         return
     for warning in report.warnings:
-        err.print(f"warning: {warning}", markup=False, soft_wrap=True)
+        warn(warning)
     out.print(f"Wrote {m} completed tables to {out_dir} ({paths[0].name} ... "
               f"{paths[-1].name}) and draws.json. Analyse each table, then combine the "
               "estimates with imputelab.pool (Rubin's rules). Filled values are estimates, "

@@ -8,7 +8,7 @@ from typing import Annotated
 import typer
 from rich.table import Table as RichTable
 
-from imputelab.cli._common import err, handle_errors, out, print_json
+from imputelab.cli._common import handle_errors, out, print_json, warn
 from imputelab.cli._options import FileArg, JsonOpt, QuietOpt
 from imputelab.fill.saved import SavedModel, fit_table, save_model
 from imputelab.io.tables import read_table
@@ -58,7 +58,7 @@ def fit(
     if quiet:
         return
     for warning in report.warnings:
-        err.print(f"warning: {warning}", markup=False, soft_wrap=True)
+        warn(warning)
     out.print(model_rich_table(model))
     out.print(f"Saved model to {model_path} (fitted on {len(typed)} rows of {table.path.name}). "
               f"Fill a new file with: imputelab fill NEWFILE --model {model_path} --out OUT",

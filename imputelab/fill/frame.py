@@ -12,16 +12,15 @@ import pandas as pd
 from threadpoolctl import threadpool_limits
 
 from imputelab.errors import DataError, ImputelabError, PlanError
+from imputelab.executors.seeds import derive_seed
 from imputelab.frame.encoding import Encoding, with_derived
 from imputelab.frame.setup import working_setup
-from imputelab.io.columns import ColumnSpec, clean_column
+from imputelab.io.columns import INDICATOR_SUFFIX, ColumnSpec, clean_column, new_token_warnings
 from imputelab.io.tables import Table
 from imputelab.methods import METHODS, get_method, get_method_names
-from imputelab.score.experiment import derive_seed
 from imputelab.score.plan import Plan
 
 __all__ = [
-    "INDICATOR_SUFFIX",
     "FillReport",
     "FittedFill",
     "check_plan",
@@ -454,9 +453,7 @@ def checked_clean(table: Table, plan: Plan, report: FillReport, *, fit_on: Table
         report.warnings.extend(check_plan(plan, fit_on, force=force))
         report.warnings.extend(check_plan(plan, table, force=True, content=False))
     typed, report.new_tokens = clean_with_plan(table, plan)
-    for name, tokens in report.new_tokens.items():
-        shown = ", ".join(f"'{t}' ({c})" for t, c in list(tokens.items())[:5])
-        report.warnings.append(f"column '{name}': new cells read as missing: {shown}")
+    report.warnings.extend(new_token_warnings(report.new_tokens))
     reference = None
     if fit_on is not None:
         reference, _ = clean_with_plan(fit_on, plan)
@@ -484,7 +481,6 @@ def finish_output(table: Table, plan: Plan, typed: pd.DataFrame, filled: pd.Data
     return pd.concat([filled, flags], axis=1)
 
 
-INDICATOR_SUFFIX = "__was_missing"
 
 
 def missing_indicators(typed: pd.DataFrame, plan: Plan, columns: Any) -> pd.DataFrame:

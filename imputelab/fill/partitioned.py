@@ -50,6 +50,7 @@ from imputelab.fill.streamed import (
     csv_options,
     fill_chunk,
 )
+from imputelab.io.columns import new_token_warnings
 from imputelab.io.tables import Table, _short_reason
 from imputelab.score.plan import Plan
 
@@ -339,7 +340,5 @@ def _merge(report: FillReport, parts: list[dict[str, Any]]) -> None:
         report.methods.update(part["methods"])
         report.dropped, report.excluded = part["dropped"], part["excluded"]
     for name, found in tokens.items():
-        ordered = dict(sorted(found.items(), key=lambda kv: (-kv[1], kv[0])))
-        report.new_tokens[name] = ordered
-        shown = ", ".join(f"'{t}' ({c})" for t, c in list(ordered.items())[:5])
-        report.warnings.append(f"column '{name}': new cells read as missing: {shown}")
+        report.new_tokens[name] = dict(sorted(found.items(), key=lambda kv: (-kv[1], kv[0])))
+    report.warnings.extend(new_token_warnings(report.new_tokens))

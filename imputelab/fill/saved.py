@@ -79,7 +79,7 @@ from imputelab.fill.frame import (
     render_text,
 )
 from imputelab.frame.encoding import Encoding
-from imputelab.io.columns import MISSING_TOKENS
+from imputelab.io.columns import MISSING_TOKENS, new_token_warnings
 from imputelab.io.tables import Table
 from imputelab.methods import METHODS
 from imputelab.methods.simple import most_frequent
@@ -177,15 +177,9 @@ def fit_table(table: Table, plan: Plan, *, force: bool = False
     report = FillReport()
     report.warnings.extend(check_plan(plan, table, force=force))
     typed, report.new_tokens = clean_with_plan(table, plan)
-    _warn_new_tokens(report.new_tokens, report)
+    report.warnings.extend(new_token_warnings(report.new_tokens))
     typed = typed[[c for c in typed.columns if c in plan.columns]]
     return fit_plan(typed, plan, report), typed, report
-
-
-def _warn_new_tokens(tokens: Mapping[str, Mapping[str, int]], report: FillReport) -> None:
-    for name, found in tokens.items():
-        shown = ", ".join(f"'{t}' ({c})" for t, c in list(found.items())[:5])
-        report.warnings.append(f"column '{name}': new cells read as missing: {shown}")
 
 
 def _role(name: str, fitted: FittedFill) -> str:
@@ -687,7 +681,7 @@ def _check_values(typed: pd.DataFrame, new_tokens: Mapping[str, Mapping[str, int
                                 f"but this file holds text that is neither {what} nor a known "
                                 f"missing token: {_shown(strange)}; fix those cells, or record "
                                 "them as missing codes in the plan and fit again")
-    _warn_new_tokens(new_tokens, report)
+    report.warnings.extend(new_token_warnings(new_tokens))
     for name in model.fitted.encoding.columns:
         if typed[name].isna().all():
             report.blank_columns.append(name)

@@ -36,6 +36,7 @@ import pyarrow.parquet as pq
 from joblib import Parallel, delayed
 
 from imputelab.errors import DataError, OptionError, TableIOError
+from imputelab.executors.seeds import derive_seed
 from imputelab.fill.frame import (
     FillReport,
     FittedFill,
@@ -47,6 +48,7 @@ from imputelab.fill.frame import (
     fit_plan,
     missing_indicators,
 )
+from imputelab.io.columns import new_token_warnings
 from imputelab.io.tables import (
     _SNIFF_BYTES,
     Table,
@@ -59,7 +61,6 @@ from imputelab.io.tables import (
     file_fingerprint,
     table_format,
 )
-from imputelab.score.experiment import derive_seed
 from imputelab.score.plan import Plan
 
 __all__ = [
@@ -1048,8 +1049,6 @@ def stream_fill(
             writer.close()
     report.filled.update(filled)
     for name, found in new_tokens.items():
-        ordered = dict(sorted(found.items(), key=lambda kv: (-kv[1], kv[0])))
-        report.new_tokens[name] = ordered
-        shown = ", ".join(f"'{t}' ({c})" for t, c in list(ordered.items())[:5])
-        report.warnings.append(f"column '{name}': new cells read as missing: {shown}")
+        report.new_tokens[name] = dict(sorted(found.items(), key=lambda kv: (-kv[1], kv[0])))
+    report.warnings.extend(new_token_warnings(report.new_tokens))
     return report

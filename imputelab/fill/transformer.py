@@ -29,16 +29,15 @@ from sklearn.utils import Tags, check_random_state
 from sklearn.utils._set_output import _get_output_config
 from sklearn.utils.validation import _check_feature_names_in, check_is_fitted, validate_data
 
-from imputelab.errors import PlanError
+from imputelab.errors import ImputelabWarning, PlanError
 from imputelab.fill.frame import (
-    INDICATOR_SUFFIX,
     FillReport,
     clean_with_plan,
     fit_plan,
     missing_indicators,
     render_text,
 )
-from imputelab.io.columns import ColumnSpec, infer_spec
+from imputelab.io.columns import INDICATOR_SUFFIX, ColumnSpec, infer_spec, new_token_warnings
 from imputelab.io.tables import Table
 from imputelab.masks import get_mask_names
 from imputelab.methods import METHODS, get_method_names
@@ -229,7 +228,7 @@ class PlanImputer(TransformerMixin, BaseEstimator):
         report = FillReport()
         fitted = fit_plan(typed, plan, report)
         for message in report.warnings:
-            warnings.warn(message, UserWarning, stacklevel=2)
+            warnings.warn(message, ImputelabWarning, stacklevel=2)
         self.plan_ = plan
         self.fitted_ = fitted
         self._families = {name: _family(frame[name].dtype) for name in frame.columns}
@@ -489,7 +488,5 @@ def _restore(filled: pd.DataFrame, typed: pd.DataFrame, frame: pd.DataFrame,
 
 
 def _warn_tokens(new_tokens: dict[str, dict[str, int]]) -> None:
-    for name, tokens in new_tokens.items():
-        shown = ", ".join(f"'{t}' ({c})" for t, c in list(tokens.items())[:5])
-        warnings.warn(f"column '{name}': cells read as missing that the plan had not "
-                      f"recorded: {shown}", UserWarning, stacklevel=3)
+    for line in new_token_warnings(new_tokens):
+        warnings.warn(line, ImputelabWarning, stacklevel=3)

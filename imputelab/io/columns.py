@@ -17,6 +17,7 @@ that was surveyed and on any later file.
 from __future__ import annotations
 
 import re
+from collections.abc import Mapping
 from dataclasses import asdict, dataclass, field
 from typing import Any
 
@@ -26,6 +27,9 @@ import pandas as pd
 from imputelab.errors import DataError, OptionError
 
 __all__ = [
+    "INDICATOR_SUFFIX",
+    "blank_mask",
+    "new_token_warnings",
     "IMPUTABLE_KINDS",
     "KINDS",
     "MISSING_TOKENS",
@@ -131,11 +135,47 @@ def _is_text(series: pd.Series) -> bool:
     )
 
 
+INDICATOR_SUFFIX = "__was_missing"
+"""Suffix of the 0/1 column that marks a filled column's imputed cells (``NAME__was_missing``)."""
+
+
+def blank_mask(values: pd.Series) -> np.ndarray:
+    """The one definition of a blank: a missing cell, or text that is empty or all spaces.
+
+    Parameters
+    ----------
+    values : Series
+        Raw text cells (CSV) or typed values (Parquet, or after cleaning).
+
+    Returns
+    -------
+    ndarray of bool
+    """
+    blank = values.isna().to_numpy(dtype=bool, na_value=True)
+    if pd.api.types.is_string_dtype(values.dtype) and not isinstance(
+        values.dtype, pd.CategoricalDtype
+    ):
+        blank = blank | values.str.strip().eq("").to_numpy(dtype=bool, na_value=False)
+    return blank
+
+
+def new_token_warnings(tokens: Mapping[str, Mapping[str, int]]) -> list[str]:
+    """One line per column for cells read as missing that the plan had not recorded.
+
+    The five most common tokens are shown with their counts, most common first.
+    """
+    lines = []
+    for name, found in tokens.items():
+        ordered = sorted(found.items(), key=lambda kv: (-kv[1], kv[0]))[:5]
+        shown = ", ".join(f"'{t}' ({c})" for t, c in ordered)
+        lines.append(f"column '{name}': new cells read as missing: {shown}")
+    return lines
+
+
 def _blank_mask(values: pd.Series) -> np.ndarray:
     """Blank or common missing token (text input)."""
-    stripped = values.str.strip()
-    lowered = stripped.str.lower()
-    return (stripped.eq("") | lowered.isin(MISSING_TOKENS) | values.isna()).to_numpy(bool)
+    lowered = values.str.strip().str.lower()
+    return blank_mask(values) | lowered.isin(MISSING_TOKENS).to_numpy(dtype=bool, na_value=False)
 
 
 def parse_numbers(values: pd.Series, decimal: str = ".") -> pd.Series:

@@ -22,7 +22,6 @@ the fill of one component, the one with the fewest wrong labels on the selection
 
 from __future__ import annotations
 
-import hashlib
 import itertools
 from collections.abc import Mapping, Sequence
 from typing import Any
@@ -31,6 +30,7 @@ import numpy as np
 import pandas as pd
 from sklearn.utils import check_random_state
 
+from imputelab.executors.seeds import derive_seed
 from imputelab.frame.encoding import is_categorical
 from imputelab.methods.base import FillMethod
 from imputelab.methods.chained import ChainedBoostedFill, ChainedForestFill, ChainedLinearFill
@@ -72,11 +72,6 @@ def blend_weights(gram: np.ndarray, step: float = 0.02) -> np.ndarray:
     grid = simplex_grid(gram.shape[0], step)
     loss = np.einsum("mi,ij,mj->m", grid, gram, grid)
     return grid[int(np.argmin(loss))]
-
-
-def _seed(base: int, name: str) -> int:
-    digest = hashlib.sha256(f"{base}|{name}".encode()).digest()
-    return int.from_bytes(digest[:4], "little") >> 1
 
 
 class BlendFill(FillMethod):
@@ -127,11 +122,11 @@ class BlendFill(FillMethod):
                              f"{self.selection_rate!r}")
 
     def _components(self, base: int, needed: Sequence[str]) -> dict[str, FillMethod]:
-        return {name: COMPONENTS[name](random_state=_seed(base, name)) for name in needed}
+        return {name: COMPONENTS[name](random_state=derive_seed(base, name)) for name in needed}
 
     def _select(self, X: pd.DataFrame, targets: list[str], base: int) -> tuple[dict, str | None]:
         """Weights and label component from cells hidden here (never the caller's cells)."""
-        rng = np.random.default_rng(_seed(base, "selection"))
+        rng = np.random.default_rng(derive_seed(base, "selection"))
         masked, hidden = X.copy(), {}
         for name in targets:
             observed = np.flatnonzero(X[name].notna().to_numpy())
@@ -144,7 +139,7 @@ class BlendFill(FillMethod):
             masked[name] = column
             hidden[name] = rows
         fills = {name: method.fit_transform(masked, targets)
-                 for name, method in self._components(_seed(base, "select"),
+                 for name, method in self._components(derive_seed(base, "select"),
                                                       list(COMPONENTS)).items()}
         truth = {name: X[name].iloc[rows] for name, rows in hidden.items()}
         guesses = {name: {m: fills[m][name].iloc[rows] for m in fills}

@@ -18,7 +18,6 @@ Every fitted model is kept, so ``transform`` on new rows replays the same chain.
 
 from __future__ import annotations
 
-import hashlib
 import warnings
 from collections.abc import Callable
 from typing import Any
@@ -32,6 +31,7 @@ from sklearn.utils import check_random_state
 from sklearn.utils.validation import check_is_fitted
 
 from imputelab.errors import DataError
+from imputelab.executors.seeds import derive_seed
 from imputelab.frame.encoding import derived_from, is_categorical
 from imputelab.methods.base import FillMethod
 from imputelab.methods.design import Design, column_stats, frequent_levels
@@ -96,16 +96,6 @@ def _import_model(state: dict[str, Any]) -> Any:
     raise DataError(f"unknown model type '{kind}'")
 
 
-def _column_seed(base: int, sweep: int, name: str) -> int:
-    """A model's seed from the chain's seed, the sweep and the column's name.
-
-    Not from the column's position in the chain: a fill that leaves hole-free columns out of
-    the chain must seed every other column's model as a fit of the whole chain does.
-    """
-    digest = hashlib.sha256(f"{base}|{sweep}|{name}".encode()).digest()
-    return int.from_bytes(digest[:4], "little") >> 1
-
-
 class _ChainedFill(FillMethod):
     """Shared chain; subclasses choose the design and the per-column model."""
 
@@ -164,7 +154,7 @@ class _ChainedFill(FillMethod):
                     features = self._features(state, design, name, observed, raw)
                     target = self._target(X[name], observed)
                     model = self._fit_column(categorical, features, target,
-                                             _column_seed(base, sweep, name),
+                                             derive_seed(base, sweep, name),
                                              self._fallback(X[name]))
                     self.models_[sweep][name] = model
                 else:

@@ -30,10 +30,11 @@ import numpy as np
 import pandas as pd
 
 from imputelab.errors import OptionError
+from imputelab.executors.seeds import derive_seed
 from imputelab.fill.frame import FillReport, checked_clean, fill_frame
+from imputelab.io.columns import INDICATOR_SUFFIX
 from imputelab.io.tables import Table, atomic_path
 from imputelab.metrics.scores import get_metric
-from imputelab.score.experiment import derive_seed
 from imputelab.score.plan import Plan
 from imputelab.survey.diagnostics import CAUTION, missing_patterns
 from imputelab.survey.table import DEFAULT_DROP_THRESHOLD, Survey, SurveyOptions, survey_table
@@ -484,7 +485,7 @@ def _section_filling(facts: _Facts) -> str:
                 f"the number beside each bar is its count after filling and the rows added."
                 f"{shown}")))
         if col.indicator:
-            out.append(f"<p class='small'>The fill adds {_code(name + '__was_missing')} "
+            out.append(f"<p class='small'>The fill adds {_code(name + INDICATOR_SUFFIX)} "
                        "(1 where the value was filled) so later analysis can tell the rows "
                        "apart.</p>")
         out.append("</article>")

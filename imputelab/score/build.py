@@ -13,6 +13,7 @@ import pandas as pd
 
 from imputelab.errors import OptionError
 from imputelab.executors.pool import Executor
+from imputelab.executors.seeds import derive_seed
 from imputelab.frame.encoding import Encoding
 from imputelab.frame.setup import default_action, working_setup
 from imputelab.io.tables import Table
@@ -20,7 +21,7 @@ from imputelab.masks import get_mask_names
 from imputelab.methods import METHODS, get_method_names
 from imputelab.methods.blend import COMPONENTS
 from imputelab.metrics.scores import PRIMARY, get_metric
-from imputelab.score.experiment import ExperimentResult, derive_seed, run_experiment
+from imputelab.score.experiment import ExperimentResult, run_experiment
 from imputelab.score.plan import ColumnPlan, Plan, choose_method
 from imputelab.score.target import run_target_experiment
 from imputelab.survey.diagnostics import ABSENT_LABEL

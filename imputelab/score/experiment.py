@@ -9,8 +9,6 @@ order in which tasks run, so one job or many give the same numbers.
 
 from __future__ import annotations
 
-import hashlib
-import json
 import time
 import traceback
 from collections.abc import Callable, Mapping, Sequence
@@ -22,23 +20,14 @@ import pandas as pd
 from threadpoolctl import threadpool_limits
 
 from imputelab.executors.pool import Executor, JoblibExecutor
+from imputelab.executors.seeds import derive_seed
 from imputelab.frame.encoding import is_categorical, with_derived
 from imputelab.masks import get_mask
 from imputelab.methods import get_method
 from imputelab.methods.blend import COMPONENTS, fit_blend
 from imputelab.metrics.scores import correlation_shift, score_cells, variance_ratio
 
-__all__ = ["ExperimentResult", "derive_seed", "draw_hidden", "run_experiment"]
-
-
-def derive_seed(*parts: int | str) -> int:
-    """A 31-bit seed from a tuple of ints and names (stable across runs and platforms).
-
-    The parts are hashed as their JSON text, so ``(0, "mcar", 0)`` and ``(0, "mcar")`` differ.
-    """
-    text = json.dumps([p if isinstance(p, str) else int(p) for p in parts])
-    digest = hashlib.sha256(text.encode()).digest()
-    return int.from_bytes(digest[:4], "little") >> 1
+__all__ = ["ExperimentResult", "draw_hidden", "run_experiment"]
 
 
 @dataclass

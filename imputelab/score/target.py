@@ -55,12 +55,12 @@ from sklearn.preprocessing import OneHotEncoder, StandardScaler
 from threadpoolctl import threadpool_limits
 
 from imputelab.errors import DataError, OptionError
+from imputelab.executors.seeds import derive_seed
 from imputelab.frame.encoding import is_categorical, with_derived
+from imputelab.io.columns import INDICATOR_SUFFIX
 from imputelab.methods import get_method
-from imputelab.score.experiment import derive_seed
 
 __all__ = [
-    "INDICATOR_SUFFIX",
     "LGBM_PARAMS",
     "MAX_ROWS",
     "MODELS",
@@ -70,7 +70,6 @@ __all__ = [
 ]
 
 NO_FILL = "no fill"
-INDICATOR_SUFFIX = "__was_missing"
 MODELS = ("lightgbm", "linear")
 # Modest, deterministic boosting: enough trees to be a fair judge of a fill, cheap on one core.
 LGBM_PARAMS: dict[str, Any] = dict(

@@ -13,6 +13,7 @@ from imputelab.errors import DataError, OptionError
 from imputelab.io.columns import (
     IMPUTABLE_KINDS,
     ColumnSpec,
+    blank_mask,
     clean_column,
     infer_spec,
     numeric_codes,
@@ -203,7 +204,7 @@ def survey_table(table: Table, options: SurveyOptions | None = None) -> Survey:
         typed[name] = values
         notes = []
         if spec.kind in ("text", "identifier"):
-            missing = int(_blank_count(raw))
+            missing = int(blank_mask(raw).sum())
             notes.append("passed through")
         else:
             missing = int(values.isna().sum())
@@ -291,7 +292,3 @@ def _number_share(raw: pd.Series, decimal: str) -> float:
     return float(parse_numbers(present, decimal).notna().mean())
 
 
-def _blank_count(raw: pd.Series) -> int:
-    if pd.api.types.is_string_dtype(raw.dtype):
-        return int((raw.isna() | raw.str.strip().eq("")).sum())
-    return int(raw.isna().sum())

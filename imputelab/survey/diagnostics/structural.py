@@ -42,7 +42,7 @@ import numpy as np
 import pandas as pd
 
 from imputelab.errors import DataError, OptionError
-from imputelab.io.columns import IMPUTABLE_KINDS, KINDS
+from imputelab.io.columns import IMPUTABLE_KINDS, KINDS, blank_mask
 
 __all__ = [
     "ABSENT_LABEL",
@@ -185,15 +185,6 @@ def _shown(value: Any) -> str:
     if isinstance(value, float):
         return str(int(value)) if value.is_integer() else repr(value)
     return repr(value)
-
-
-def _blank_mask(column: pd.Series) -> np.ndarray:
-    """Missing cells, plus empty or all-space text (text columns keep blanks as ``""``)."""
-    blank = column.isna().to_numpy(dtype=bool, na_value=True)
-    if pd.api.types.is_string_dtype(column.dtype):
-        empty = column.str.strip().eq("").to_numpy(dtype=bool, na_value=False)
-        blank = blank | empty
-    return blank
 
 
 def _check_inputs(typed: pd.DataFrame, kinds: Mapping[str, str]) -> None:
@@ -376,7 +367,7 @@ def find_structural_rules(
 
     n = len(typed)
     names = list(typed.columns)
-    blanks = [_blank_mask(typed[name]) if name in kinds else np.zeros(n, bool)
+    blanks = [blank_mask(typed[name]) if name in kinds else np.zeros(n, bool)
               for name in names]
     targets = [j for j, name in enumerate(names)
                if kinds.get(name) in IMPUTABLE_KINDS and 0 < int(blanks[j].sum()) < n]
