@@ -244,10 +244,18 @@ def test_score_different_seed_gives_different_scores(
     assert differing  # other masks hide other cells, so the scores move
 
 
-def test_score_json_prints_the_plan_on_stdout_only(trip_log_csv, tmp_path, fast_score_args):
-    plan_path = tmp_path / "plan.json"
+def test_score_json_prints_the_plan_and_its_files_on_stdout_only(trip_log_csv, tmp_path,
+                                                                  fast_score_args):
+    plan_path, report_path = tmp_path / "plan.json", tmp_path / "page.html"
     result = ok(invoke("score", trip_log_csv, "--out", plan_path, *fast_score_args, "--json"))
-    assert json.loads(result.stdout) == load(plan_path)
+    printed = json.loads(result.stdout)
+    assert printed == {"files": {"plan": str(plan_path), "report": None},
+                       "plan": load(plan_path)}
+    result = ok(invoke("score", trip_log_csv, "--out", plan_path, *fast_score_args, "--json",
+                       "--report", report_path))
+    assert json.loads(result.stdout)["files"] == {"plan": str(plan_path),
+                                                  "report": str(report_path)}
+    assert report_path.read_text(encoding="utf-8").startswith("<!DOCTYPE html>")
 
 
 def test_score_missing_code_turns_the_code_into_holes(trip_log_csv, tmp_path, fast_score_args):

@@ -117,6 +117,21 @@ def print_json(data: Any) -> None:
     sys.stdout.flush()
 
 
+def for_a_person(data: Any, *, json: bool, quiet: bool, warnings: Iterable[str] = ()) -> bool:
+    """Print ``data`` as JSON (``--json``), or nothing (``--quiet``), or the warnings.
+
+    True when the command should go on printing its tables and lines for a person.
+    """
+    if json:
+        print_json(data)
+        return False
+    if quiet:
+        return False
+    for message in warnings:
+        warn(message)
+    return True
+
+
 @contextmanager
 def progress_bar(description: str, *, quiet: bool):
     """A transient progress bar on stderr; yields ``update(done, total)``."""

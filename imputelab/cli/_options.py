@@ -2,9 +2,12 @@
 
 from __future__ import annotations
 
+import functools
+import inspect
 import os
+from collections.abc import Callable
 from pathlib import Path
-from typing import Annotated
+from typing import Annotated, Any, TypeVar
 
 import typer
 
@@ -40,10 +43,51 @@ JsonOpt = Annotated[bool, typer.Option("--json", help="Print machine-readable JS
 QuietOpt = Annotated[bool, typer.Option("--quiet", "-q", help="Print nothing but errors.")]
 
 
+#: The options that say how a file is read, shared by every command that surveys one: the
+#: parameter, its typer annotation and its default.
+READING: dict[str, tuple[Any, Any]] = {
+    "kind": (KindOpt, None),
+    "missing_code": (CodeOpt, None),
+    "date_format": (DateOpt, None),
+    "drop_threshold": (DropOpt, DEFAULT_DROP_THRESHOLD),
+    "target": (TargetOpt, None),
+    "checks": (ChecksOpt, True),
+    "jobs": (JobsOpt, 0),
+}
+
+C = TypeVar("C", bound=Callable[..., Any])
+
+
+def reading_options(command: C) -> C:
+    """Give ``command`` the options of :data:`READING` that it does not declare itself.
+
+    The command ends its parameters with ``**reading``; typer sees the shared options as
+    ordinary keyword parameters (through ``__signature__``), and the command receives them in
+    ``reading``, ready for :func:`survey_options`. A command that needs another default or
+    help for one of them declares it itself, and keeps it out of ``reading``.
+    """
+    own = inspect.signature(command, eval_str=True)
+    params = [p for p in own.parameters.values() if p.kind is not p.VAR_KEYWORD]
+    declared = {p.name for p in params}
+    shared = [inspect.Parameter(name, inspect.Parameter.POSITIONAL_OR_KEYWORD, annotation=hint,
+                                default=default)
+              for name, (hint, default) in READING.items() if name not in declared]
+    at = next((i for i, p in enumerate(params) if p.name in ("jobs", "json")), len(params))
+    params[at:at] = shared  # in --help, before the output options
+
+    @functools.wraps(command)
+    def wrapper(**kwargs: Any) -> Any:
+        return command(**kwargs)
+
+    wrapper.__signature__ = own.replace(parameters=params)  # type: ignore[attr-defined]
+    wrapper.__annotations__ = {p.name: p.annotation for p in params}
+    return wrapper  # type: ignore[return-value]
+
+
 def survey_options(
-    kind: list[str] | None,
-    missing_code: list[str] | None,
-    date_format: list[str] | None,
+    kind: list[str] | None = None,
+    missing_code: list[str] | None = None,
+    date_format: list[str] | None = None,
     drop_threshold: float = DEFAULT_DROP_THRESHOLD,
     target: str | None = None,
     *,

@@ -11,11 +11,10 @@ from rich.table import Table as RichTable
 
 from imputelab.cli._common import (
     check_output,
+    for_a_person,
     handle_errors,
     out,
-    print_json,
     progress_bar,
-    warn,
 )
 from imputelab.cli._options import FileArg, JsonOpt, QuietOpt
 from imputelab.errors import OptionError
@@ -134,13 +133,9 @@ def fill(
 def _print_report(report: FillReport, out_path: Path, how: str, json: bool, quiet: bool,
                   **extra: object) -> None:
     """The fill's report: JSON on stdout, or warnings, the table and one closing line."""
-    if json:
-        print_json({"out": str(out_path), **extra, **report.to_dict()})
+    if not for_a_person({"out": str(out_path), **extra, **report.to_dict()}, json=json,
+                        quiet=quiet, warnings=report.warnings):
         return
-    if quiet:
-        return
-    for warning in report.warnings:
-        warn(warning)
     out.print(report_rich_table(report))
     if report.dropped:
         out.print(f"Dropped: {', '.join(report.dropped)}")
@@ -162,13 +157,9 @@ def _fill_draws(file: Path, out_dir: Path, plan_path: Path | None, model_path: P
     with progress_bar("drawing completed tables", quiet=quiet or json) as update:
         paths, report, info = write_draws(table, plan, m, out_dir, fit_on=reference,
                                           force=force, progress=update)
-    if json:
-        print_json({"out": str(out_dir), "files": [str(p) for p in paths], **info})
+    if not for_a_person({"out": str(out_dir), "files": [str(p) for p in paths], **info},
+                        json=json, quiet=quiet, warnings=report.warnings):
         return
-    if quiet:
-        return
-    for warning in report.warnings:
-        warn(warning)
     out.print(f"Wrote {m} completed tables to {out_dir} ({paths[0].name} ... "
               f"{paths[-1].name}) and draws.json. Analyse each table, then combine the "
               "estimates with imputelab.pool (Rubin's rules). Filled values are estimates, "

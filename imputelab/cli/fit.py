@@ -8,7 +8,7 @@ from typing import Annotated
 import typer
 from rich.table import Table as RichTable
 
-from imputelab.cli._common import handle_errors, out, print_json, warn
+from imputelab.cli._common import for_a_person, handle_errors, out
 from imputelab.cli._options import FileArg, JsonOpt, QuietOpt
 from imputelab.fill.saved import SavedModel, fit_table, save_model
 from imputelab.io.tables import read_table
@@ -46,19 +46,15 @@ def fit(
     table = read_table(file)
     fitted, typed, report = fit_table(table, plan, force=force)
     model = save_model(fitted, model_path, typed, source=table, overwrite=overwrite)
-    if json:
-        print_json({"model": str(model_path), "plan_fingerprint": model.plan_fingerprint,
-                    "training": model.training, "versions": model.versions,
-                    "columns": {n: {"kind": e["kind"], "role": e["role"],
-                                    "method": next((g.method_name for g in fitted.groups
-                                                    if n in g.columns), None)}
-                                for n, e in model.schema.items()},
-                    "warnings": report.warnings})
+    summary = {"model": str(model_path), "plan_fingerprint": model.plan_fingerprint,
+               "training": model.training, "versions": model.versions,
+               "columns": {n: {"kind": e["kind"], "role": e["role"],
+                               "method": next((g.method_name for g in fitted.groups
+                                               if n in g.columns), None)}
+                           for n, e in model.schema.items()},
+               "warnings": report.warnings}
+    if not for_a_person(summary, json=json, quiet=quiet, warnings=report.warnings):
         return
-    if quiet:
-        return
-    for warning in report.warnings:
-        warn(warning)
     out.print(model_rich_table(model))
     out.print(f"Saved model to {model_path} (fitted on {len(typed)} rows of {table.path.name}). "
               f"Fill a new file with: imputelab fill NEWFILE --model {model_path} --out OUT",

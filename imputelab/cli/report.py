@@ -3,23 +3,12 @@
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Annotated
+from typing import Annotated, Any
 
 import typer
 
 from imputelab.cli._common import check_output, handle_errors, out, print_json, progress_bar
-from imputelab.cli._options import (
-    ChecksOpt,
-    CodeOpt,
-    DateOpt,
-    FileArg,
-    JobsOpt,
-    JsonOpt,
-    KindOpt,
-    QuietOpt,
-    TargetOpt,
-    survey_options,
-)
+from imputelab.cli._options import FileArg, JsonOpt, QuietOpt, reading_options, survey_options
 from imputelab.io.tables import read_table
 from imputelab.report.page import SECTIONS, survey_options_for, write_report
 from imputelab.score.plan import Plan
@@ -40,23 +29,19 @@ def report_line(path: Path) -> str:
 
 
 @handle_errors
+@reading_options
 def report(
     file: FileArg,
     plan_path: Annotated[Path, typer.Option("--plan", "-p", help="A plan made by score.")],
     out_path: Annotated[Path, typer.Option("--out", "-o", help="Where to write the .html.")],
     force: Annotated[bool, typer.Option(
         "--force", help="Report even when the plan was made from a different file.")] = False,
-    kind: KindOpt = None,
-    missing_code: CodeOpt = None,
-    date_format: DateOpt = None,
     drop_threshold: Annotated[float | None, typer.Option(
         "--drop-threshold", help="Flag columns missing more than this share (default: the "
                                  "plan's).")] = None,
-    target: TargetOpt = None,
-    checks: ChecksOpt = True,
-    jobs: JobsOpt = 0,
     json: JsonOpt = False,
     quiet: QuietOpt = False,
+    **reading: Any,
 ) -> None:
     """Write a self-contained HTML report of a plan on its file, with charts.
 
@@ -64,8 +49,7 @@ def report(
     change how the survey in the report's diagnostics reads it.
     """
     check_output(out_path, [file, plan_path])
-    given = survey_options(kind, missing_code, date_format, target=target, checks=checks,
-                           jobs=jobs)
+    given = survey_options(**reading)
     plan = Plan.load(plan_path)
     table = read_table(file)
     options = survey_options_for(plan, given, drop_threshold=drop_threshold)

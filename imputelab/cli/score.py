@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import os
 from pathlib import Path
-from typing import Annotated
+from typing import Annotated, Any
 
 import typer
 from rich import box
@@ -19,16 +19,11 @@ from imputelab.cli._common import (
     progress_bar,
 )
 from imputelab.cli._options import (
-    ChecksOpt,
     ClusterOpt,
-    CodeOpt,
-    DateOpt,
-    DropOpt,
     FileArg,
     JsonOpt,
-    KindOpt,
     QuietOpt,
-    TargetOpt,
+    reading_options,
     survey_options,
 )
 from imputelab.cli.report import report_line
@@ -39,7 +34,6 @@ from imputelab.metrics.scores import PRIMARY, get_metric
 from imputelab.report.page import write_report
 from imputelab.score.build import ScoreOptions, score_table
 from imputelab.score.plan import Plan
-from imputelab.survey.table import DEFAULT_DROP_THRESHOLD
 
 SHORT = {"constant": "const", "chained-linear": "linear", "chained-forest": "forest",
          "chained-boosted": "boosted"}
@@ -153,6 +147,7 @@ def parse_metrics(values: list[str] | None) -> dict[str, str]:
 
 
 @handle_errors
+@reading_options
 def score(
     file: FileArg,
     out_path: Annotated[Path, typer.Option("--out", "-o", help="Where to write plan.json.")],
@@ -186,19 +181,15 @@ def score(
     cluster: ClusterOpt = None,
     use_target: Annotated[bool, typer.Option(
         "--use-target", help="Let the target help fill the other columns.")] = False,
-    kind: KindOpt = None,
-    missing_code: CodeOpt = None,
-    date_format: DateOpt = None,
-    drop_threshold: DropOpt = DEFAULT_DROP_THRESHOLD,
-    target: TargetOpt = None,
-    checks: ChecksOpt = True,
     report_path: Annotated[Path | None, typer.Option(
         "--report", help="Also write a self-contained HTML report (charts of the survey, the "
                          "experiment and the fill) to this path.")] = None,
     json: JsonOpt = False,
     quiet: QuietOpt = False,
+    **reading: Any,
 ) -> None:
     """Hide known cells, fill them with every method, score them, and write a plan."""
+    target = reading["target"]
     check_output(out_path, [file])
     if report_path is not None:
         check_output(report_path, [file, out_path], option="--report")
@@ -207,8 +198,7 @@ def score(
     if jobs < 0:
         raise OptionError(f"--jobs must be 0 (all cores) or more, got {jobs}")
     options = ScoreOptions(
-        survey=survey_options(kind, missing_code, date_format, drop_threshold, target,
-                              checks=checks, jobs=jobs, seed=seed),
+        survey=survey_options(**reading, jobs=jobs, seed=seed),
         masks=parse_list(masks, "--masks") if masks is not None else None,
         rate=rate,
         repeats=repeats,
@@ -231,7 +221,9 @@ def score(
         with progress_bar("writing the report", quiet=quiet) as update:
             write_report(report_path, table, plan, survey=survey, progress=update)
     if json:
-        print_json(plan.to_dict())
+        print_json({"files": {"plan": str(out_path),
+                              "report": None if report_path is None else str(report_path)},
+                    "plan": plan.to_dict()})
         return
     if quiet:
         return

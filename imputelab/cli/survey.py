@@ -2,25 +2,15 @@
 
 from __future__ import annotations
 
+from typing import Any
+
 from rich.table import Table as RichTable
 
 from imputelab.cli._common import handle_errors, out, print_json, progress_bar
-from imputelab.cli._options import (
-    ChecksOpt,
-    CodeOpt,
-    DateOpt,
-    DropOpt,
-    FileArg,
-    JobsOpt,
-    JsonOpt,
-    KindOpt,
-    QuietOpt,
-    TargetOpt,
-    survey_options,
-)
+from imputelab.cli._options import FileArg, JsonOpt, QuietOpt, reading_options, survey_options
 from imputelab.io.tables import read_table
 from imputelab.survey.diagnostics import CAUTION
-from imputelab.survey.table import DEFAULT_DROP_THRESHOLD, Survey, survey_table
+from imputelab.survey.table import Survey, survey_table
 
 
 def survey_rich_table(survey: Survey) -> RichTable:
@@ -90,21 +80,16 @@ def evidence_lines(survey: Survey, shown: int = 6) -> list[str]:
 
 
 @handle_errors
+@reading_options
 def survey(
     file: FileArg,
-    kind: KindOpt = None,
-    missing_code: CodeOpt = None,
-    date_format: DateOpt = None,
-    drop_threshold: DropOpt = DEFAULT_DROP_THRESHOLD,
-    target: TargetOpt = None,
-    checks: ChecksOpt = True,
-    jobs: JobsOpt = 0,
     json: JsonOpt = False,
     quiet: QuietOpt = False,
+    **reading: Any,
 ) -> None:
     """Survey a table: kinds, missing cells, disguised blanks, codes, what the blanks mean."""
-    options = survey_options(kind, missing_code, date_format, drop_threshold, target,
-                             checks=checks, jobs=jobs)
+    options = survey_options(**reading)
+    drop_threshold, target = options.drop_threshold, options.target
     table = read_table(file)
     with progress_bar("surveying", quiet=quiet or json):  # the checks fit classifiers
         result = survey_table(table, options)
