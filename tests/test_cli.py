@@ -35,18 +35,10 @@ MINUTES = "%Y-%m-%d %H:%M"  # how the generator writes timestamps (demo_data._fm
 
 
 @pytest.fixture(autouse=True)
-def _few_threads(request: pytest.FixtureRequest) -> None:
-    # The demo runs as a user runs it; every other test takes one BLAS thread (see conftest).
-    if request.function is not test_demo_end_to_end:
-        request.getfixturevalue("single_blas_thread")
-
-
-
-
-
-
-
-
+def _few_threads(single_blas_thread: None) -> None:
+    # Every test here takes one BLAS thread (see conftest); the full demo, run as a user runs
+    # it, is in test_demo_readme.py.
+    return None
 
 
 def edited_plan(source: Path, folder: Path, edit: dict[str, dict[str, Any]]) -> Path:
@@ -427,23 +419,8 @@ def test_fill_output_permissions_follow_the_umask(trip_log_csv, trip_log_plan, t
 # -------------------------------------------------------------------------------------- demo
 
 
-# The end-to-end check: the whole job with the demo's full default settings. It is the one slow
-# test; everything else uses small tables and cheap settings. Its time is measured by
-# benchmarks/score_speed.py, not asserted here.
-def test_demo_end_to_end(tmp_path):
-    folder = tmp_path / "demo"
-    result = invoke("demo", "--out", folder, "--quiet")
-    ok(result)
-    names = {"trips.csv", "survey.json", "plan.json", "trips_filled.csv", "report.html"}
-    assert names <= {p.name for p in folder.iterdir()}
-    survey = load(folder / "survey.json")
-    assert survey["rows"] == 5000
-    assert list(survey["columns"]) == list(DEMO_COLUMNS)
-    plan = load(folder / "plan.json")
-    assert plan["format"] == "imputelab-plan"
-    assert plan["columns"]["spoiled"]["action"] == "exclude"  # the demo's target
-    assert plan["columns"]["driver_rating"]["cleaning"]["missing_codes"] == [99]
-    check_filled_csv(folder / "trips.csv", folder / "trips_filled.csv", plan)
+# The whole demo with its full default settings, held to the README's numbers, is in
+# test_demo_readme.py.
 
 
 def test_demo_in_a_real_process(tmp_path):
