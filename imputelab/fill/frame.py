@@ -11,7 +11,7 @@ import numpy as np
 import pandas as pd
 from threadpoolctl import threadpool_limits
 
-from imputelab.errors import DataError, ImputelabError, PlanError
+from imputelab.errors import DataError, ImputelabError, PlanError, param
 from imputelab.executors.seeds import derive_seed
 from imputelab.frame.encoding import Encoding, with_derived
 from imputelab.frame.setup import working_setup
@@ -90,7 +90,7 @@ def check_plan(plan: Plan, table: Table, *, force: bool = False,
     planned = list(plan.columns)
     missing = [c for c in planned if c not in columns]
     extra = [c for c in columns if c not in planned]
-    where = f"--plan was made from '{plan.source.get('file')}'"
+    where = f"{param('plan')} was made from '{plan.source.get('file')}'"
     if missing or extra:
         parts = []
         if missing:
@@ -99,7 +99,8 @@ def check_plan(plan: Plan, table: Table, *, force: bool = False,
             parts.append(f"not in the plan: {', '.join(extra)}")
         message = f"{where} and its columns do not match '{table.path}' ({'; '.join(parts)})"
         if not force:
-            raise PlanError(message + "; run score on this file, or pass --force to fill the "
+            raise PlanError(message + f"; run score on this file, or pass {param('force')} to "
+                                      "fill the "
                                       "planned columns present and pass the others through")
         warnings.append(message)
     fingerprint = plan.source.get("fingerprint", "")
@@ -107,7 +108,8 @@ def check_plan(plan: Plan, table: Table, *, force: bool = False,
         message = (f"{where}, and '{table.path}' has different content "
                    f"(fingerprint {fingerprint[:19]}... vs sha256:{table.fingerprint[:12]}...)")
         if not force:
-            raise PlanError(message + "; pass --force to fill it with the same plan (methods are "
+            raise PlanError(message + f"; pass {param('force')} to fill it with the same plan "
+                                      "(methods are "
                                       "fitted on this file), or run score on it")
         warnings.append(message)
     return warnings
@@ -409,9 +411,9 @@ def fill_table(
     table : Table
     plan : Plan
     fit_on : Table, optional
-        Reference table to fit the methods on (``--fit-on``); its fingerprint is not checked.
+        Reference table to fit the methods on; its fingerprint is not checked.
     force : bool
-        Proceed past a fingerprint or column mismatch (``--force``).
+        Proceed past a fingerprint or column mismatch.
     text_output : bool
         For CSV input, return the original text with filled cells rewritten (for CSV output);
         otherwise the typed frame (for Parquet output).
@@ -432,7 +434,7 @@ def fill_table(
 
 def checked_clean(table: Table, plan: Plan, report: FillReport, *, fit_on: Table | None = None,
                   force: bool = False) -> tuple[pd.DataFrame, pd.DataFrame | None]:
-    """Check a plan against the table (and the ``--fit-on`` reference), then clean both.
+    """Check a plan against the table (and the ``fit_on`` reference), then clean both.
 
     Returns
     -------
@@ -447,7 +449,8 @@ def checked_clean(table: Table, plan: Plan, report: FillReport, *, fit_on: Table
         lacking = [c for c in plan.columns if c in table.frame.columns
                    and c not in fit_on.frame.columns]
         if lacking:
-            raise DataError(f"--fit-on '{fit_on.path}' lacks columns {', '.join(lacking)}")
+            raise DataError(f"{param('fit_on')} '{fit_on.path}' lacks columns "
+                            f"{', '.join(lacking)}")
         # The methods are fitted on the reference, which must be the planned file; the file
         # to fill is new by design, so only its columns are checked.
         report.warnings.extend(check_plan(plan, fit_on, force=force))
@@ -459,7 +462,8 @@ def checked_clean(table: Table, plan: Plan, report: FillReport, *, fit_on: Table
         reference, _ = clean_with_plan(fit_on, plan)
         missing = [c for c in plan.columns if c in typed.columns and c not in reference.columns]
         if missing:
-            raise DataError(f"--fit-on '{fit_on.path}' lacks columns {', '.join(missing)}")
+            raise DataError(f"{param('fit_on')} '{fit_on.path}' lacks columns "
+                            f"{', '.join(missing)}")
     return typed, reference
 
 
@@ -470,7 +474,7 @@ def finish_output(table: Table, plan: Plan, typed: pd.DataFrame, filled: pd.Data
     For CSV input with ``text_output``, the original text of every observed cell.
     """
     filled = filled.copy()
-    for name in typed.columns:  # unplanned columns pass through in place (with --force)
+    for name in typed.columns:  # unplanned columns pass through in place (with ``force``)
         if name not in plan.columns:
             filled[name] = typed[name]
     filled = filled[[c for c in typed.columns if c in filled.columns]]

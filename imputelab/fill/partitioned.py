@@ -8,7 +8,7 @@ of a CSV file cut at a row's end. Every partition is exactly the frame
 ``map_partitions`` (clean by the plan, fill with the fitted methods, add the indicators: the
 steps of :func:`imputelab.fill.streamed.stream_fill`) gives the values of the single-machine
 fill. The output is a folder of Parquet files, one a partition (``part-00000.parquet``, ...;
-read back in name order they are the table), written into a temporary folder beside ``--out``
+read back in name order they are the table), written into a temporary folder beside ``out_dir``
 and renamed into place when every partition is done.
 
 The fitted methods are shipped to the workers once (scattered), by Dask's own serialization:
@@ -19,7 +19,7 @@ and the output folder at the same path (one machine, or a shared file system).
 A CSV file is cut between rows by counting quotes: a line break ends a row when an even
 number of ``"`` precede it. That holds for files whose quotes enclose whole cells (as every
 CSV writer quotes); a file with a stray quote inside an unquoted cell is refused, with the
-advice to fill it without ``--cluster``.
+advice to fill it on one machine (``stream_fill``).
 """
 
 from __future__ import annotations
@@ -39,7 +39,7 @@ import pyarrow as pa
 import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
 
-from imputelab.errors import DataError, OptionError, TableIOError
+from imputelab.errors import DataError, OptionError, TableIOError, param
 from imputelab.executors.pool import worker_result
 from imputelab.fill.frame import FillReport, FittedFill, _specs, check_plan, finish_output
 from imputelab.fill.streamed import (
@@ -141,9 +141,10 @@ def _csv_cuts(path: Path, start: int, stop: int, delimiter: str, size: int,
             ~opening & (where + 1 < stop) & ~np.isin(after, list(fences)))
         if bad.any():
             raise OptionError(
-                f"--cluster: {option} '{path}' has a quote inside an unquoted cell (byte "
+                f"{param('cluster')}: {option} '{path}' has a quote inside an unquoted cell (byte "
                 f"{int(where[np.argmax(bad)])}), so it cannot be cut between rows safely; fill "
-                "it without --cluster (--stream), or convert it to Parquet first")
+                f"it without {param('cluster')} ({param('stream')}), or convert it to Parquet "
+                "first")
         if block > start and cuts[-1] < block:
             breaks = np.flatnonzero(view == _LF) + block
             even = (quotes + np.searchsorted(where, breaks)) % 2 == 0
@@ -227,7 +228,7 @@ def _same_schema(folder: Path) -> None:
         except (pa.ArrowInvalid, pa.ArrowNotImplementedError) as exc:
             raise DataError(f"'{part.name}': a partition's columns have other types than the "
                             f"first one's ({_short_reason(exc)}); fill this file without "
-                            "--cluster") from None
+                            f"{param('cluster')}") from None
         pq.write_table(table, part)
 
 
@@ -281,7 +282,8 @@ def cluster_fill(
     out_dir = Path(out_dir)
     report = report if report is not None else FillReport()
     if out_dir.exists():
-        raise OptionError(f"--out '{out_dir}' exists; with --cluster give a new folder name")
+        raise OptionError(f"{param('out')} '{out_dir}' exists; with {param('cluster')} give a new "
+                          "folder name")
     parent = out_dir.parent if str(out_dir.parent) else Path(".")
     if not parent.is_dir():
         raise TableIOError(f"cannot write '{out_dir}': folder '{parent}' does not exist")

@@ -66,7 +66,14 @@ import lightgbm as lgb
 import numpy as np
 import pandas as pd
 
-from imputelab.errors import DataError, ImputelabError, OptionError, PlanError, TableIOError
+from imputelab.errors import (
+    DataError,
+    ImputelabError,
+    OptionError,
+    PlanError,
+    TableIOError,
+    param,
+)
 from imputelab.fill.frame import (
     FillReport,
     FittedFill,
@@ -100,7 +107,7 @@ __all__ = [
 
 MODEL_FORMAT = "imputelab-model"
 MODEL_VERSION = 1
-#: What ``fill --model`` does with a label the model never saw, in an observed cell.
+#: What :func:`fill_with_model` does with a label the model never saw, in an observed cell.
 UNSEEN_CHOICES = ("keep", "missing", "mode")
 _MANIFEST, _MODEL, _PLAN, _ARRAYS = "manifest.json", "model.json", "plan.json", "arrays.npz"
 _SAFE_PATH = re.compile(r"^[a-z0-9_]+(\.[a-z0-9]+)?(/[a-z0-9_]+\.[a-z0-9]+)?$")
@@ -164,7 +171,7 @@ def fit_table(table: Table, plan: Plan, *, force: bool = False
     table : Table
     plan : Plan
     force : bool
-        Fit even when the plan was made from another file or other columns (``--force``).
+        Fit even when the plan was made from another file or other columns.
 
     Returns
     -------
@@ -385,14 +392,16 @@ def _write_directory(path: Path, files: Mapping[str, bytes], *, overwrite: bool)
     replace = False
     if path.is_dir() and any(path.iterdir()):
         if not _is_model(path):
-            raise TableIOError(f"--model '{path}' is a folder that holds other files; give a "
-                               "new or empty folder (imputelab only replaces its own models)")
+            raise TableIOError(f"{param('model')} '{path}' is a folder that holds other files; "
+                               "give a new or empty folder (imputelab only replaces its own "
+                               "models)")
         if not overwrite:
-            raise TableIOError(f"--model '{path}' already holds a model; pass --overwrite to "
+            raise TableIOError(f"{param('model')} '{path}' already holds a model; pass "
+                               f"{param('overwrite')} to "
                                "replace it")
         replace = True
     elif path.exists() and not path.is_dir():
-        raise TableIOError(f"--model '{path}' is a file; give a folder path")
+        raise TableIOError(f"{param('model')} '{path}' is a file; give a folder path")
     tmp = Path(tempfile.mkdtemp(prefix=f".{path.name}.", suffix=".part", dir=parent))
     try:
         umask = os.umask(0)
@@ -423,7 +432,7 @@ def _write_directory(path: Path, files: Mapping[str, bytes], *, overwrite: bool)
 
 # ------------------------------------------------------------------------------ loading
 
-def load_model(path: str | os.PathLike[str], *, option: str = "--model") -> SavedModel:
+def load_model(path: str | os.PathLike[str], *, option: str = param("model")) -> SavedModel:
     """Read a model directory written by :func:`save_model`, checking every file.
 
     Nothing in the directory is executed: JSON, numeric arrays (``allow_pickle=False``) and
@@ -740,7 +749,7 @@ def fill_with_model(
         For a missing column the model uses, or a column whose values changed sort.
     """
     if unseen not in UNSEEN_CHOICES:
-        raise OptionError(f"--unseen '{unseen}': choose from {', '.join(UNSEEN_CHOICES)}")
+        raise OptionError(f"{param('unseen')} '{unseen}': choose from {', '.join(UNSEEN_CHOICES)}")
     plan, fitted = model.plan, model.fitted
     report = ModelFillReport(unseen_action=unseen)
     report.warnings.extend(model.warnings)

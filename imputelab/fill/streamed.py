@@ -35,7 +35,7 @@ import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
 from joblib import Parallel, delayed
 
-from imputelab.errors import DataError, OptionError, TableIOError
+from imputelab.errors import DataError, OptionError, TableIOError, param
 from imputelab.executors.seeds import derive_seed
 from imputelab.fill.frame import (
     FillReport,
@@ -526,7 +526,7 @@ def reservoir_sample(
     >>> len(sample.frame), sample.frame.index.is_monotonic_increasing
     (5, True)
     """
-    _check_count(n, "--fit-sample")
+    _check_count(n, param("fit_sample"))
     if isinstance(seed, bool) or not isinstance(seed, int | np.integer) or seed < 0:
         raise OptionError(f"seed must be a non-negative integer, got {seed!r}")
     digest = hashlib.sha256()
@@ -610,7 +610,7 @@ def fit_sample(
     path : path-like
     plan : Plan
     n : int
-        Rows to fit on (``--fit-sample``).
+        Rows to fit on.
     seed : int, optional
         Seed of the sample; by default derived from the plan's seed.
     force : bool
@@ -881,9 +881,9 @@ def _check_csv_writable(frame: pd.DataFrame) -> None:
               or pd.api.types.is_timedelta64_dtype(frame[c].dtype)]
     if stamps:
         raise OptionError(
-            f"--out: a Parquet file with timestamp columns ({', '.join(stamps)}) is streamed "
-            "to Parquet only (pandas writes a timestamp column as text from all its values "
-            "at once); give --out a .parquet name, or fill it in memory")
+            f"{param('out')}: a Parquet file with timestamp columns ({', '.join(stamps)}) is "
+            "streamed to Parquet only (pandas writes a timestamp column as text from all its "
+            f"values at once); give {param('out')} a .parquet name, or fill it in memory")
 
 
 def _worker_chunk(job: _Job, table: pa.Table, offset: int) -> tuple[Any, ...]:
@@ -1002,10 +1002,10 @@ def stream_fill(
     >>> (folder / "out.csv").read_text()
     'a,b\\n1,x\\n2,y\\n3,x\\n'
     """
-    _check_count(chunk_rows, "--chunk-rows")
-    _check_count(n_jobs, "--jobs")
+    _check_count(chunk_rows, param("chunk_rows"))
+    _check_count(n_jobs, param("n_jobs"))
     out_path = Path(out_path)
-    out_format = table_format(out_path, option="--out")
+    out_format = table_format(out_path, option=param("out"))
     report = report if report is not None else FillReport()
     source = _open(path, option)
     columns = source.framer.columns
@@ -1014,7 +1014,7 @@ def stream_fill(
         raise DataError(f"{option} '{source.path}' lacks columns the fitted plan uses: "
                         f"{', '.join(needed)}")
     # The file to fill is new by design (the methods were fitted elsewhere or on a sample):
-    # only its columns are checked, as fill_table checks the file beside --fit-on.
+    # only its columns are checked, as fill_table checks the file beside ``fit_on``.
     shape = Table(pd.DataFrame(columns=columns), source.path, source.format)
     report.warnings.extend(check_plan(plan, shape, force=True, content=False))
 

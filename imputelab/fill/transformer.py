@@ -29,7 +29,7 @@ from sklearn.utils import Tags, check_random_state
 from sklearn.utils._set_output import _get_output_config
 from sklearn.utils.validation import _check_feature_names_in, check_is_fitted, validate_data
 
-from imputelab.errors import ImputelabWarning, PlanError
+from imputelab.errors import ImputelabWarning, PlanError, param
 from imputelab.fill.frame import (
     FillReport,
     clean_with_plan,
@@ -259,7 +259,7 @@ class PlanImputer(TransformerMixin, BaseEstimator):
         if plan.settings.get("use_target"):
             raise PlanError("the plan fills with its target column as a feature "
                             "(use_target), which transform never sees; score without "
-                            "--use-target")
+                            f"{param('use_target')}")
         for col in plan.columns.values():
             # A plan written by hand may say only the kind; the cleaning then reads the
             # cells with that kind's defaults.
