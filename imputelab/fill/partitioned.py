@@ -26,8 +26,6 @@ from __future__ import annotations
 
 import json
 import os
-import shutil
-import tempfile
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
@@ -51,7 +49,7 @@ from imputelab.fill.streamed import (
     fill_chunk,
 )
 from imputelab.io.columns import new_token_warnings
-from imputelab.io.tables import Table, _short_reason
+from imputelab.io.tables import Table, _short_reason, atomic_dir
 from imputelab.score.plan import Plan
 
 __all__ = ["DEFAULT_PARTITION_BYTES", "cluster_fill", "partitions"]
@@ -284,9 +282,6 @@ def cluster_fill(
     if out_dir.exists():
         raise OptionError(f"{param('out')} '{out_dir}' exists; with {param('cluster')} give a new "
                           "folder name")
-    parent = out_dir.parent if str(out_dir.parent) else Path(".")
-    if not parent.is_dir():
-        raise TableIOError(f"cannot write '{out_dir}': folder '{parent}' does not exist")
     frame, delimiter, decimal = partitions(path, partition_bytes=partition_bytes,
                                            option=option)
     columns = [str(c) for c in frame.columns]
@@ -298,11 +293,7 @@ def cluster_fill(
     report.warnings.extend(check_plan(plan, shape, force=True, content=False))
     framer = _Framer("csv" if Path(path).suffix.lower() == ".csv" else "parquet", columns)
     job = _Job(fitted, plan, framer, Path(path), delimiter, decimal, "parquet", _specs(plan))
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", suffix=".part", dir=parent))
-    umask = os.umask(0)
-    os.umask(umask)
-    os.chmod(tmp, 0o777 & ~umask)  # mkdtemp makes an owner-only folder; outputs follow the umask
-    try:
+    with atomic_dir(out_dir) as tmp:
         [shipped] = client.scatter([job], broadcast=True, hash=False)
         reports = frame.map_partitions(_fill_partition, shipped, str(tmp),
                                        meta=pd.DataFrame({"report": []}, dtype=object),
@@ -321,10 +312,6 @@ def cluster_fill(
                 progress(done, len(futures))
         parts = [json.loads(found[f.key]["report"].iloc[0]) for f in futures]
         _same_schema(tmp)
-        os.replace(tmp, out_dir)
-    finally:
-        if tmp.exists():
-            shutil.rmtree(tmp)
     _merge(report, parts)
     return report
 

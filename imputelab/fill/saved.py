@@ -52,8 +52,6 @@ import math
 import os
 import platform
 import re
-import shutil
-import tempfile
 import zipfile
 from collections.abc import Mapping
 from dataclasses import dataclass, field
@@ -87,7 +85,7 @@ from imputelab.fill.frame import (
 )
 from imputelab.frame.encoding import Encoding
 from imputelab.io.columns import MISSING_TOKENS, new_token_warnings
-from imputelab.io.tables import Table
+from imputelab.io.tables import Table, atomic_dir
 from imputelab.methods import METHODS
 from imputelab.methods.simple import most_frequent
 from imputelab.methods.state import BoosterText
@@ -386,9 +384,6 @@ def _is_model(path: Path) -> bool:
 
 def _write_directory(path: Path, files: Mapping[str, bytes], *, overwrite: bool) -> None:
     """Write every file into a new directory beside ``path``, then rename it into place."""
-    parent = path.parent if str(path.parent) else Path(".")
-    if not parent.is_dir():
-        raise TableIOError(f"cannot write '{path}': folder '{parent}' does not exist")
     replace = False
     if path.is_dir() and any(path.iterdir()):
         if not _is_model(path):
@@ -397,37 +392,18 @@ def _write_directory(path: Path, files: Mapping[str, bytes], *, overwrite: bool)
                                "models)")
         if not overwrite:
             raise TableIOError(f"{param('model')} '{path}' already holds a model; pass "
-                               f"{param('overwrite')} to "
-                               "replace it")
+                               f"{param('overwrite')} to replace it")
         replace = True
     elif path.exists() and not path.is_dir():
         raise TableIOError(f"{param('model')} '{path}' is a file; give a folder path")
-    tmp = Path(tempfile.mkdtemp(prefix=f".{path.name}.", suffix=".part", dir=parent))
     try:
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o777 & ~umask)  # mkdtemp makes owner-only folders; models follow umask
-        for name, data in files.items():
-            target = tmp / name
-            target.parent.mkdir(exist_ok=True)
-            target.write_bytes(data)
-        if replace:
-            old = Path(tempfile.mkdtemp(prefix=f".{path.name}.", suffix=".old", dir=parent))
-            os.replace(path, old / "model")
-            try:
-                os.replace(tmp, path)
-            except OSError:
-                os.replace(old / "model", path)  # put the old model back
-                raise
-            finally:
-                shutil.rmtree(old, ignore_errors=True)
-        else:
-            os.replace(tmp, path)  # an empty folder is replaced atomically
+        with atomic_dir(path, replace=replace) as tmp:
+            for name, data in files.items():
+                target = tmp / name
+                target.parent.mkdir(exist_ok=True)
+                target.write_bytes(data)
     except OSError as exc:
         raise TableIOError(f"cannot write model '{path}': {exc.strerror or exc}") from None
-    finally:
-        if tmp.exists():
-            shutil.rmtree(tmp, ignore_errors=True)
 
 
 # ------------------------------------------------------------------------------ loading
