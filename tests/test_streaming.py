@@ -389,11 +389,15 @@ def test_empty_files_are_refused_as_read_table_refuses_them(trips, tmp_path, dat
 
 def test_bad_sizes_are_option_errors(trips, tmp_path):
     path, _, plan, fitted = trips
-    with pytest.raises(OptionError, match="`chunk_rows` must be a whole number of rows, at "
-                                          "least 1; got 0"):
+    with pytest.raises(OptionError, match="`chunk_rows` must be a whole number of at least "
+                                          "1, got 0"):
         stream_fill(path, tmp_path / "out.csv", fitted, plan, chunk_rows=0)
     with pytest.raises(OptionError, match="`fit_sample` must be a whole number"):
         reservoir_sample(path, 2.5, seed=0)
+    with pytest.raises(OptionError, match="`seed` must be a whole number of at least 0, got -1"):
+        reservoir_sample(path, 5, seed=-1)
+    with pytest.raises(OptionError, match="`n_jobs` must be a whole number of at least 1"):
+        stream_fill(path, tmp_path / "out.csv", fitted, plan, n_jobs=True)
 
 
 # ---------------------------------------------------------------------- reservoir sample

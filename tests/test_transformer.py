@@ -372,9 +372,10 @@ def test_a_missing_plan_file_is_a_plan_error(tmp_path, trips):
 @pytest.mark.parametrize(("params", "match"), [
     ({"methods": ["mean", "guess"]}, r"PlanImputer\(methods=\.\.\.\): unknown name 'guess'"),
     ({"masks": ["sometimes"]}, r"PlanImputer\(masks=\.\.\.\): unknown name 'sometimes'"),
-    ({"repeats": 0}, r"PlanImputer\(repeats=0\): give a whole number of at least 1"),
-    ({"rate": 1.5}, r"PlanImputer\(rate=1.5\): give a share strictly between 0 and 1"),
-    ({"random_state": -1}, r"PlanImputer\(random_state=-1\): give a seed of 0 or more"),
+    ({"repeats": 0}, r"PlanImputer: `repeats` must be a whole number of at least 1, got 0"),
+    ({"repeats": True}, r"PlanImputer: `repeats` must be a whole number of at least 1"),
+    ({"rate": 1.5}, r"PlanImputer: `rate` must be a number strictly between 0 and 1, got 1.5"),
+    ({"random_state": -1}, r"PlanImputer: `random_state` must be a whole number of at least 0"),
 ])
 def test_bad_parameters_are_value_errors_raised_in_fit(trips, params, match):
     imputer = PlanImputer(**params)  # the constructor only stores them

@@ -72,6 +72,7 @@ from sklearn.linear_model import BayesianRidge, LogisticRegression
 from sklearn.neighbors import NearestNeighbors
 from threadpoolctl import ThreadpoolController
 
+from imputelab.checks import check_seed
 from imputelab.errors import DataError, OptionError, PlanError, param
 from imputelab.fill.frame import (
     FillReport,
@@ -161,8 +162,7 @@ def iter_draws(fitted: FittedFill, typed: pd.DataFrame, m: int, *, seed: int,
     """Yield the tables of :func:`draw_datasets` one at a time (to write each as it comes)."""
     if isinstance(m, bool) or not isinstance(m, int | np.integer) or m < 1:
         raise OptionError(f"the number of drawn tables must be a whole number >= 1, got {m!r}")
-    if isinstance(seed, bool) or not isinstance(seed, int | np.integer) or seed < 0:
-        raise OptionError(f"the seed of the draws must be a whole number >= 0, got {seed!r}")
+    check_seed(seed)
     for group in fitted.groups:
         if not isinstance(group.method, (*_CHAINED, KNNFill, *_MARGINAL, ConstantFill)):
             raise PlanError(f"plan: column '{group.columns[0]}': method {group.method_name} "

@@ -31,6 +31,7 @@ from typing import Any
 import numpy as np
 from scipy import stats
 
+from imputelab.checks import check_count, check_share
 from imputelab.errors import DataError, OptionError
 
 __all__ = ["PooledResult", "pool", "relative_efficiency"]
@@ -119,8 +120,7 @@ def relative_efficiency(fmi: Any, m: int) -> Any:
     >>> round(relative_efficiency(0.3, 5), 2)
     0.94
     """
-    if m < 1:
-        raise OptionError(f"relative efficiency needs m >= 1 imputations, got {m}")
+    m = check_count(m, "m")
     value = 1.0 / (1.0 + np.asarray(fmi, float) / m)
     return value if np.ndim(value) else float(value)
 
@@ -179,8 +179,7 @@ def pool(estimates: Any, variances: Any, *, df_complete: float | None = None,
     >>> round(result.riv, 3), round(result.df, 1)
     (0.1, 484.0)
     """
-    if not 0.0 < alpha < 1.0:
-        raise OptionError(f"pool: alpha must lie between 0 and 1, got {alpha}")
+    alpha = check_share(alpha, "alpha")
     if df_complete is not None and not df_complete > 0:
         raise OptionError(f"pool: df_complete must be positive, got {df_complete}")
     q = _as_table(estimates, "estimates")

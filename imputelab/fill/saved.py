@@ -64,10 +64,10 @@ import lightgbm as lgb
 import numpy as np
 import pandas as pd
 
+from imputelab.checks import check_choice
 from imputelab.errors import (
     DataError,
     ImputelabError,
-    OptionError,
     PlanError,
     TableIOError,
     param,
@@ -724,8 +724,7 @@ def fill_with_model(
     DataError
         For a missing column the model uses, or a column whose values changed sort.
     """
-    if unseen not in UNSEEN_CHOICES:
-        raise OptionError(f"{param('unseen')} '{unseen}': choose from {', '.join(UNSEEN_CHOICES)}")
+    check_choice(unseen, "unseen", UNSEEN_CHOICES)
     plan, fitted = model.plan, model.fitted
     report = ModelFillReport(unseen_action=unseen)
     report.warnings.extend(model.warnings)

@@ -35,6 +35,7 @@ import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
 from joblib import Parallel, delayed
 
+from imputelab.checks import check_count, check_seed
 from imputelab.errors import DataError, OptionError, TableIOError, param
 from imputelab.executors.seeds import derive_seed
 from imputelab.fill.frame import (
@@ -526,9 +527,8 @@ def reservoir_sample(
     >>> len(sample.frame), sample.frame.index.is_monotonic_increasing
     (5, True)
     """
-    _check_count(n, param("fit_sample"))
-    if isinstance(seed, bool) or not isinstance(seed, int | np.integer) or seed < 0:
-        raise OptionError(f"seed must be a non-negative integer, got {seed!r}")
+    check_count(n, "fit_sample")
+    check_seed(seed)
     digest = hashlib.sha256()
     source = _open(path, option, digest=digest)
     rng = np.random.default_rng(int(seed))
@@ -582,11 +582,6 @@ def reservoir_sample(
     fingerprint = digest.hexdigest() if source.format == "csv" else file_fingerprint(source.path)
     return Table(frame, source.path, source.format, source.delimiter, source.decimal,
                  fingerprint)
-
-
-def _check_count(value: Any, option: str) -> None:
-    if isinstance(value, bool) or not isinstance(value, int | np.integer) or value < 1:
-        raise OptionError(f"{option} must be a whole number of rows, at least 1; got {value!r}")
 
 
 def fit_sample(
@@ -1002,8 +997,8 @@ def stream_fill(
     >>> (folder / "out.csv").read_text()
     'a,b\\n1,x\\n2,y\\n3,x\\n'
     """
-    _check_count(chunk_rows, param("chunk_rows"))
-    _check_count(n_jobs, param("n_jobs"))
+    check_count(chunk_rows, "chunk_rows")
+    check_count(n_jobs, "n_jobs")
     out_path = Path(out_path)
     out_format = table_format(out_path, option=param("out"))
     report = report if report is not None else FillReport()
