@@ -605,7 +605,7 @@ def test_a_tree_model_fill_equals_the_plan_fill_when_a_column_has_no_holes(train
 
 def test_the_state_codec_keeps_types_and_odd_keys():
     # Unit check of model.py's plain-data codec: what goes in comes out, type for type.
-    from imputelab.fill.saved import _Store
+    from imputelab.fill.model_format import _Store
 
     tree = {"$cost": 1.5, "$$x": [np.int8(3), np.float32(0.25), np.bool_(True)],
             "nan": np.nan, "inf": -np.inf, "pair": (0.1, 2), "codes": np.arange(3),

@@ -39,16 +39,9 @@ import pyarrow.parquet as pq
 
 from imputelab.errors import DataError, OptionError, TableIOError, param
 from imputelab.executors.pool import worker_result
-from imputelab.fill.frame import FillReport, FittedFill, _specs, check_plan, finish_output
-from imputelab.fill.streamed import (
-    _CsvChunks,
-    _Framer,
-    _Job,
-    _ParquetChunks,
-    csv_options,
-    fill_chunk,
-)
-from imputelab.io.columns import new_token_warnings
+from imputelab.fill.chunks import _CsvChunks, _Framer, _ParquetChunks, csv_options
+from imputelab.fill.frame import FillReport, FittedFill, _specs, finish_output
+from imputelab.fill.streamed import _Job, _Totals, check_new_file, fill_chunk
 from imputelab.io.tables import Table, _short_reason, atomic_dir
 from imputelab.score.plan import Plan
 
@@ -275,8 +268,6 @@ def cluster_fill(
         Unreadable input, missing columns, an existing ``out_dir``, a CSV file that cannot be
         cut between rows.
     """
-    from distributed import as_completed
-
     out_dir = Path(out_dir)
     report = report if report is not None else FillReport()
     if out_dir.exists():
@@ -285,12 +276,7 @@ def cluster_fill(
     frame, delimiter, decimal = partitions(path, partition_bytes=partition_bytes,
                                            option=option)
     columns = [str(c) for c in frame.columns]
-    needed = [c for c in fitted.encoding.kinds if c not in columns]
-    if needed:
-        raise DataError(f"{option} '{path}' lacks columns the fitted plan uses: "
-                        f"{', '.join(needed)}")
-    shape = Table(pd.DataFrame(columns=columns), Path(path), "parquet")
-    report.warnings.extend(check_plan(plan, shape, force=True, content=False))
+    check_new_file(columns, Path(path), fitted, plan, report, option)
     framer = _Framer("csv" if Path(path).suffix.lower() == ".csv" else "parquet", columns)
     job = _Job(fitted, plan, framer, Path(path), delimiter, decimal, "parquet", _specs(plan))
     with atomic_dir(out_dir) as tmp:
@@ -298,36 +284,31 @@ def cluster_fill(
         reports = frame.map_partitions(_fill_partition, shipped, str(tmp),
                                        meta=pd.DataFrame({"report": []}, dtype=object),
                                        enforce_metadata=False, align_dataframes=False)
-        futures = client.compute(reports.to_delayed())
-        found: dict[str, Any] = {}
-        for done, future in enumerate(as_completed(futures), start=1):
-            try:
-                found[future.key] = worker_result(future)
-            except OSError as exc:
-                raise TableIOError(
-                    f"a worker could not read {option} '{path}' or write '{out_dir}' "
-                    f"({_short_reason(exc)}); every worker must see both paths (one machine "
-                    "or a shared file system)") from None
-            if progress is not None:
-                progress(done, len(futures))
-        parts = [json.loads(found[f.key]["report"].iloc[0]) for f in futures]
+        parts = _gather(client.compute(reports.to_delayed()), progress,
+                        f"{option} '{path}'", out_dir)
         _same_schema(tmp)
-    _merge(report, parts)
-    return report
-
-
-def _merge(report: FillReport, parts: list[dict[str, Any]]) -> None:
-    """Add the partitions' reports up, as stream_fill adds its chunks'."""
-    tokens: dict[str, dict[str, int]] = {}
+    totals = _Totals(report)
     for part in parts:
-        for name, count in part["filled"].items():
-            report.filled[name] = report.filled.get(name, 0) + count
-        for name, found in part["tokens"].items():
-            merged = tokens.setdefault(name, {})
-            for token, count in found.items():
-                merged[token] = merged.get(token, 0) + count
-        report.methods.update(part["methods"])
-        report.dropped, report.excluded = part["dropped"], part["excluded"]
-    for name, found in tokens.items():
-        report.new_tokens[name] = dict(sorted(found.items(), key=lambda kv: (-kv[1], kv[0])))
-    report.warnings.extend(new_token_warnings(report.new_tokens))
+        totals.add(FillReport(**{k: part[k] for k in ("filled", "methods", "dropped",
+                                                      "excluded")}), part["tokens"])
+    return totals.close()
+
+
+
+def _gather(futures: list[Any], progress: Progress | None, source: str,
+            out_dir: Path) -> list[dict[str, Any]]:
+    """The partitions' reports, in partition order, gathered as the workers finish."""
+    from distributed import as_completed
+
+    found: dict[str, Any] = {}
+    for done, future in enumerate(as_completed(futures), start=1):
+        try:
+            found[future.key] = worker_result(future)
+        except OSError as exc:
+            raise TableIOError(
+                f"a worker could not read {source} or write '{out_dir}' "
+                f"({_short_reason(exc)}); every worker must see both paths (one machine "
+                "or a shared file system)") from None
+        if progress is not None:
+            progress(done, len(futures))
+    return [json.loads(found[f.key]["report"].iloc[0]) for f in futures]

@@ -31,13 +31,8 @@ from sklearn.utils.validation import _check_feature_names_in, check_is_fitted, v
 
 from imputelab.checks import check_count, check_seed, check_share
 from imputelab.errors import ImputelabWarning, OptionError, PlanError, param
-from imputelab.fill.frame import (
-    FillReport,
-    clean_with_plan,
-    fit_plan,
-    missing_indicators,
-    render_text,
-)
+from imputelab.fill.frame import FillReport, clean_with_plan, fit_plan, missing_indicators
+from imputelab.fill.text import render_text
 from imputelab.io.columns import INDICATOR_SUFFIX, ColumnSpec, infer_spec, new_token_warnings
 from imputelab.io.tables import Table
 from imputelab.masks import get_mask_names
