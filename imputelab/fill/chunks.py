@@ -11,6 +11,7 @@ from __future__ import annotations
 import codecs
 import csv
 import io
+import itertools
 import os
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
@@ -317,13 +318,8 @@ class _CsvChunks:
     def tables(self, chunk_rows: int) -> Iterator[pa.Table]:
         """Arrow tables of ``chunk_rows`` rows; the decimal mark is sniffed on the first ones."""
         chunks = _rechunk(self.batches(), chunk_rows)
-        head: list[pa.Table] = []
-        rows = 0
-        for table in chunks:
-            head.append(table)
-            rows += table.num_rows
-            if rows >= _DECIMAL_ROWS:
-                break
+        # Every chunk but the last holds chunk_rows rows: this many hold the sniffer's rows.
+        head = list(itertools.islice(chunks, -(-_DECIMAL_ROWS // chunk_rows)))
         if head:
             first = pa.concat_tables(head).slice(0, _DECIMAL_ROWS)
             self.decimal = _sniff_decimal(self.framer.frame(first, 0), self.layout.delimiter)

@@ -26,6 +26,7 @@ __all__ = [
     "check_plan",
     "checked_clean",
     "clean_with_plan",
+    "column_differences",
     "fill_frame",
     "fill_table",
     "finish_output",
@@ -85,34 +86,47 @@ def check_plan(plan: Plan, table: Table, *, force: bool = False,
     list of str
         Warnings (what ``force`` let through).
     """
-    warnings = []
-    columns = list(table.frame.columns)
-    planned = list(plan.columns)
-    missing = [c for c in planned if c not in columns]
-    extra = [c for c in columns if c not in planned]
-    where = f"{param('plan')} was made from '{plan.source.get('file')}'"
-    if missing or extra:
-        parts = []
-        if missing:
-            parts.append(f"missing from the file: {', '.join(missing)}")
-        if extra:
-            parts.append(f"not in the plan: {', '.join(extra)}")
-        message = f"{where} and its columns do not match '{table.path}' ({'; '.join(parts)})"
+    warnings: list[str] = []
+
+    def mismatch(message: str, advice: str) -> None:
         if not force:
-            raise PlanError(message + f"; run score on this file, or pass {param('force')} to "
-                                      "fill the "
-                                      "planned columns present and pass the others through")
+            raise PlanError(f"{message}; {advice}")
         warnings.append(message)
+
+    where = f"{param('plan')} was made from '{plan.source.get('file')}'"
+    differences = column_differences(list(plan.columns), list(table.frame.columns),
+                                     lacking="missing from the file", extra="not in the plan")
+    if differences:
+        mismatch(f"{where} and its columns do not match '{table.path}' ({differences})",
+                 f"run score on this file, or pass {param('force')} to fill the planned "
+                 "columns present and pass the others through")
     fingerprint = plan.source.get("fingerprint", "")
     if content and fingerprint and fingerprint != f"sha256:{table.fingerprint}":
-        message = (f"{where}, and '{table.path}' has different content "
-                   f"(fingerprint {fingerprint[:19]}... vs sha256:{table.fingerprint[:12]}...)")
-        if not force:
-            raise PlanError(message + f"; pass {param('force')} to fill it with the same plan "
-                                      "(methods are "
-                                      "fitted on this file), or run score on it")
-        warnings.append(message)
+        mismatch(f"{where}, and '{table.path}' has different content (fingerprint "
+                 f"{fingerprint[:19]}... vs sha256:{table.fingerprint[:12]}...)",
+                 f"pass {param('force')} to fill it with the same plan (methods are fitted on "
+                 "this file), or run score on it")
     return warnings
+
+
+def column_differences(planned: list[str], present: list[str], *, lacking: str,
+                       extra: str) -> str:
+    """How a plan's columns and a table's differ, ``""`` when they do not.
+
+    Returns
+    -------
+    str
+        ``"LACKING: a, b; EXTRA: c"``: the planned columns the table lacks, after ``lacking``,
+        then the table's columns the plan does not know, after ``extra``.
+    """
+    parts = []
+    missing = [c for c in planned if c not in present]
+    added = [c for c in present if c not in planned]
+    if missing:
+        parts.append(f"{lacking}: {', '.join(missing)}")
+    if added:
+        parts.append(f"{extra}: {', '.join(added)}")
+    return "; ".join(parts)
 
 
 def clean_with_plan(table: Table, plan: Plan) -> tuple[pd.DataFrame, dict[str, dict[str, int]]]:
@@ -448,8 +462,6 @@ def finish_output(table: Table, plan: Plan, typed: pd.DataFrame, filled: pd.Data
         out = render_text(table, typed, filled, _specs(plan))
         return pd.concat([out, flags.astype("str")], axis=1)
     return pd.concat([filled, flags], axis=1)
-
-
 
 
 def missing_indicators(typed: pd.DataFrame, plan: Plan, columns: Any) -> pd.DataFrame:

@@ -26,9 +26,8 @@ import pandas as pd
 
 from imputelab.checks import check_choice
 from imputelab.errors import DataError
-from imputelab.fill.frame import FillReport, _specs, clean_with_plan, missing_indicators
+from imputelab.fill.frame import FillReport, clean_with_plan, finish_output
 from imputelab.fill.model_format import SavedModel
-from imputelab.fill.text import render_text
 from imputelab.io.columns import MISSING_TOKENS, new_token_warnings
 from imputelab.io.tables import Table
 
@@ -174,8 +173,8 @@ def fill_with_model(
         counted in the report and flagged 1 in the column's ``__was_missing`` indicator.
         Labels of columns that only serve as features (the target) are always kept.
     text_output : bool
-        For CSV input, return the original text with filled cells rewritten (for CSV output);
-        otherwise the typed frame (for Parquet output).
+        As in :func:`imputelab.fill.frame.fill_table`: the original text with the filled
+        cells rewritten (CSV input, for CSV output), or the typed frame.
 
     Returns
     -------
@@ -218,12 +217,6 @@ def fill_with_model(
                                    f"the model never saw: {_shown(counts)}; {how}")
     planned = [c for c in typed.columns if c in plan.columns]
     filled = fitted.apply(typed[planned], report)
-    for name in typed.columns:  # columns the model does not know pass through in place
-        if name not in plan.columns:
-            filled[name] = typed[name]
-    filled = filled[[c for c in typed.columns if c in filled.columns]]
-    flags = missing_indicators(before, plan, filled.columns)
-    if table.is_text and text_output:
-        out = render_text(table, before, filled, _specs(plan))
-        return pd.concat([out, flags.astype("str")], axis=1), report
-    return pd.concat([filled, flags], axis=1), report
+    # ``before`` holds the replaced labels as holes: they are flagged and written as filled.
+    # Columns the model does not know pass through in place (they are the same in both).
+    return finish_output(table, plan, before, filled, text_output=text_output), report

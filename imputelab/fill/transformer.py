@@ -31,7 +31,13 @@ from sklearn.utils.validation import _check_feature_names_in, check_is_fitted, v
 
 from imputelab.checks import check_count, check_seed, check_share
 from imputelab.errors import ImputelabWarning, OptionError, PlanError, param
-from imputelab.fill.frame import FillReport, clean_with_plan, fit_plan, missing_indicators
+from imputelab.fill.frame import (
+    FillReport,
+    clean_with_plan,
+    column_differences,
+    fit_plan,
+    missing_indicators,
+)
 from imputelab.fill.text import render_text
 from imputelab.io.columns import INDICATOR_SUFFIX, ColumnSpec, infer_spec, new_token_warnings
 from imputelab.io.tables import Table
@@ -260,15 +266,11 @@ class PlanImputer(TransformerMixin, BaseEstimator):
         target = plan.settings.get("target")
         if target in plan.columns and target not in names:
             del plan.columns[target]  # the target stays outside X in a pipeline
-        missing = [n for n in plan.columns if n not in names]
-        extra = [n for n in names if n not in plan.columns]
-        if missing or extra:
-            parts = []
-            if missing:
-                parts.append(f"planned but not in X: {', '.join(missing)}")
-            if extra:
-                parts.append(f"in X but not in the plan: {', '.join(extra)}")
-            raise PlanError(f"the plan's columns do not match X ({'; '.join(parts)}); "
+        differences = column_differences(list(plan.columns), names,
+                                         lacking="planned but not in X",
+                                         extra="in X but not in the plan")
+        if differences:
+            raise PlanError(f"the plan's columns do not match X ({differences}); "
                             "make the plan from data with these columns (x0, x1, ... for an "
                             "array)")
         return plan
