@@ -497,7 +497,7 @@ def test_fit_on_must_have_the_planned_columns(tmp_path, scored_csv):
     reference, plan = scored_csv
     narrow = tmp_path / "narrow.csv"
     reference.frame.drop(columns=["stops"]).to_csv(narrow, index=False)
-    with pytest.raises(DataError, match=r"--fit-on '.*narrow\.csv' lacks columns stops"):
+    with pytest.raises(DataError, match=r"`fit_on` '.*narrow\.csv' lacks columns stops"):
         fill_table(reference, plan, fit_on=read_table(narrow))
 
 

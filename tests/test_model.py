@@ -12,6 +12,7 @@ import csv
 import hashlib
 import io
 import json
+import os
 import pickle
 import platform
 import shutil
@@ -27,11 +28,11 @@ from cli_helpers import column, invoke, load, ok, read_cells
 from threadpoolctl import threadpool_limits
 
 from imputelab.bench.demo_data import write_trip_log
-from imputelab.errors import DataError, PlanError
+from imputelab.errors import DataError, PlanError, TableIOError
 from imputelab.fill.frame import clean_with_plan, fit_plan
 from imputelab.fill.saved import fill_with_model, load_model, save_model
 from imputelab.io.columns import ColumnSpec
-from imputelab.io.tables import read_table
+from imputelab.io.tables import atomic_dir, read_table
 from imputelab.methods import METHODS
 from imputelab.score.plan import ColumnPlan, Plan
 
@@ -243,6 +244,49 @@ def test_fit_refuses_to_replace_what_it_did_not_write(trained, tmp_path):
     assert (empty / "manifest.json").is_file()
     # nothing is left behind beside the models
     assert sorted(p.name for p in tmp_path.iterdir()) == ["empty", "model", "notes"]
+
+
+# ------------------------------------------------------------- the atomic folder underneath
+
+def test_atomic_dir_renames_a_complete_folder_into_place(tmp_path):
+    target = tmp_path / "out"
+    with atomic_dir(target) as tmp:
+        assert tmp.parent == tmp_path and tmp.name.endswith(".part")
+        (tmp / "a.txt").write_text("a", encoding="utf-8")
+        assert not target.exists()  # nothing at the target until the block ends
+    assert [p.name for p in target.iterdir()] == ["a.txt"]
+    umask = os.umask(0)
+    os.umask(umask)
+    assert target.stat().st_mode & 0o777 == 0o777 & ~umask  # not mkdtemp's owner-only mode
+    assert [p.name for p in tmp_path.iterdir()] == ["out"]
+
+
+def test_atomic_dir_leaves_the_target_as_it_was_when_the_block_fails(tmp_path):
+    target = tmp_path / "out"
+    target.mkdir()
+    (target / "old.txt").write_text("old", encoding="utf-8")
+    with pytest.raises(RuntimeError, match="half-way"), atomic_dir(target, replace=True) as tmp:
+        (tmp / "new.txt").write_text("new", encoding="utf-8")
+        raise RuntimeError("half-way")
+    assert [p.name for p in target.iterdir()] == ["old.txt"]
+    assert [p.name for p in tmp_path.iterdir()] == ["out"]  # the temporary folder is gone
+
+
+def test_atomic_dir_replaces_a_full_folder_only_when_asked(tmp_path):
+    target = tmp_path / "out"
+    target.mkdir()
+    (target / "old.txt").write_text("old", encoding="utf-8")
+    # POSIX rename(2) refuses to replace a non-empty directory (ENOTEMPTY)
+    with pytest.raises(TableIOError, match=r"cannot write '.*out'"), atomic_dir(target) as tmp:
+        (tmp / "new.txt").write_text("new", encoding="utf-8")
+    assert [p.name for p in target.iterdir()] == ["old.txt"]
+    with atomic_dir(target, replace=True) as tmp:
+        (tmp / "new.txt").write_text("new", encoding="utf-8")
+    assert [p.name for p in target.iterdir()] == ["new.txt"]
+    assert [p.name for p in tmp_path.iterdir()] == ["out"]  # no old copy left beside it
+    with (pytest.raises(TableIOError, match="folder '.*nowhere' does not exist"),
+          atomic_dir(tmp_path / "nowhere" / "out")):
+        pass
 
 
 # -------------------------------------------------------------------- models you can trust
@@ -561,7 +605,7 @@ def test_a_tree_model_fill_equals_the_plan_fill_when_a_column_has_no_holes(train
 
 def test_the_state_codec_keeps_types_and_odd_keys():
     # Unit check of model.py's plain-data codec: what goes in comes out, type for type.
-    from imputelab.fill.saved import _Store
+    from imputelab.fill.model_format import _Store
 
     tree = {"$cost": 1.5, "$$x": [np.int8(3), np.float32(0.25), np.bool_(True)],
             "nan": np.nan, "inf": -np.inf, "pair": (0.1, 2), "codes": np.arange(3),

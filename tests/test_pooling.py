@@ -90,7 +90,7 @@ def test_relative_efficiency_check_values():
     assert round(relative_efficiency(0.3, 3), 2) == 0.91
     assert round(relative_efficiency(0.3, 5), 2) == 0.94
     np.testing.assert_allclose(relative_efficiency(np.array([0.3, 0.0]), 5), [1 / 1.06, 1.0])
-    with pytest.raises(OptionError, match="m >= 1"):
+    with pytest.raises(OptionError, match="`m` must be a whole number of at least 1, got 0"):
         relative_efficiency(0.3, 0)
 
 

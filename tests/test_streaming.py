@@ -22,7 +22,8 @@ from hypothesis import strategies as st
 from scipy.stats import chisquare
 from threadpoolctl import threadpool_limits
 
-import imputelab.fill.streamed as streaming
+import imputelab.fill.chunks as chunks
+import imputelab.fill.writing as writing
 from imputelab.bench.demo_data import make_trip_log, write_trip_log
 from imputelab.errors import DataError, OptionError, TableIOError
 from imputelab.fill.frame import FillReport, clean_with_plan, fill_table, fit_plan
@@ -247,7 +248,7 @@ def test_progress_counts_bytes_up_to_the_file_size(trips, tmp_path):
 
 
 def chunk_frames(path: Path, rows: int) -> pd.DataFrame:
-    source = streaming._open(path, "FILE")
+    source = chunks._open(path, "FILE")
     parts, offset = [], 0
     for table in source.tables(rows):
         parts.append(source.framer.frame(table, offset))
@@ -289,7 +290,7 @@ def test_csv_rows_are_written_as_pandas_to_csv_writes_them(cells, delimiter, one
         frame = frame[["a"]]
     expected = frame.to_csv(None, index=False, header=False, sep=delimiter, lineterminator="\n")
     columns = [pa.array(frame[c], type=pa.string()) for c in frame.columns]
-    assert streaming._csv_body(columns, delimiter).to_pybytes() == expected.encode("utf-8")
+    assert writing._csv_body(columns, delimiter).to_pybytes() == expected.encode("utf-8")
 
 
 @pytest.mark.parametrize("data", [
@@ -316,7 +317,7 @@ def test_quoted_line_breaks_across_read_blocks_and_chunks(trips, tmp_path, monke
     frame.loc[rows + 1, "remark"] = [f"line one\r\nline two {i}" for i in rows]
     path = tmp_path / "remarks.csv"
     frame.to_csv(path, index=False)
-    monkeypatch.setattr(streaming, "_BLOCK_BYTES", 512)
+    monkeypatch.setattr(chunks, "_BLOCK_BYTES", 512)
     got, _ = chunk_frames(path, 333)
     other = read_table(path)
     pd.testing.assert_frame_equal(got, other.frame)
@@ -332,7 +333,7 @@ def test_a_quoted_crlf_split_by_a_read_block_keeps_its_line_feed(tmp_path, monke
     # these pads puts the "\r" last in a 512-byte block); the reader works around it.
     path = tmp_path / "crlf.csv"
     path.write_bytes(b"a,b\n" + b"x" * pad + b',"p\r\nq"\n1,2\n')
-    monkeypatch.setattr(streaming, "_BLOCK_BYTES", 512)
+    monkeypatch.setattr(chunks, "_BLOCK_BYTES", 512)
     got, _ = chunk_frames(path, 1)
     assert got["b"].tolist() == ["p\r\nq", "2"]
     pd.testing.assert_frame_equal(got, read_table(path).frame)
@@ -389,11 +390,15 @@ def test_empty_files_are_refused_as_read_table_refuses_them(trips, tmp_path, dat
 
 def test_bad_sizes_are_option_errors(trips, tmp_path):
     path, _, plan, fitted = trips
-    with pytest.raises(OptionError, match="--chunk-rows must be a whole number of rows, at "
-                                          "least 1; got 0"):
+    with pytest.raises(OptionError, match="`chunk_rows` must be a whole number of at least "
+                                          "1, got 0"):
         stream_fill(path, tmp_path / "out.csv", fitted, plan, chunk_rows=0)
-    with pytest.raises(OptionError, match="--fit-sample must be a whole number"):
+    with pytest.raises(OptionError, match="`fit_sample` must be a whole number"):
         reservoir_sample(path, 2.5, seed=0)
+    with pytest.raises(OptionError, match="`seed` must be a whole number of at least 0, got -1"):
+        reservoir_sample(path, 5, seed=-1)
+    with pytest.raises(OptionError, match="`n_jobs` must be a whole number of at least 1"):
+        stream_fill(path, tmp_path / "out.csv", fitted, plan, n_jobs=True)
 
 
 # ---------------------------------------------------------------------- reservoir sample

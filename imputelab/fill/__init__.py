@@ -1,8 +1,8 @@
-"""Fill stage: apply a plan to a file, now or later.
-
-Takes a plan and a table, and gives the filled table: in memory (``frame``), from a saved
-fitted model that loads without executing code (``saved``), streamed chunk by chunk for
-files larger than memory (``streamed``), in Dask partitions (``partitioned``), as M
-completed tables for multiple imputation with Rubin's rules to pool them (``multiple``,
-``pooling``), or inside a scikit-learn pipeline (``transformer``).
+"""Fill stage: takes a plan (made by the score stage) and a table, and gives the table with
+every planned hole filled, every observed cell, the column order and the dtypes unchanged,
+plus a report of what was filled; in memory (``frame``), later from a saved fitted model
+that loads without executing code (``saved``, ``model_fill``), chunk by chunk for files
+larger than memory (``streamed``), in Dask partitions (``partitioned``), as M completed
+tables for multiple imputation pooled by Rubin's rules (``multiple``, ``pooling``), or inside
+a scikit-learn pipeline (``transformer``).
 """

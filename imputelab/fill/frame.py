@@ -7,12 +7,12 @@ from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
-import numpy as np
 import pandas as pd
 from threadpoolctl import threadpool_limits
 
-from imputelab.errors import DataError, ImputelabError, PlanError
+from imputelab.errors import DataError, ImputelabError, PlanError, param
 from imputelab.executors.seeds import derive_seed
+from imputelab.fill.text import render_text
 from imputelab.frame.encoding import Encoding, with_derived
 from imputelab.frame.setup import working_setup
 from imputelab.io.columns import INDICATOR_SUFFIX, ColumnSpec, clean_column, new_token_warnings
@@ -26,6 +26,7 @@ __all__ = [
     "check_plan",
     "checked_clean",
     "clean_with_plan",
+    "column_differences",
     "fill_frame",
     "fill_table",
     "finish_output",
@@ -85,32 +86,47 @@ def check_plan(plan: Plan, table: Table, *, force: bool = False,
     list of str
         Warnings (what ``force`` let through).
     """
-    warnings = []
-    columns = list(table.frame.columns)
-    planned = list(plan.columns)
-    missing = [c for c in planned if c not in columns]
-    extra = [c for c in columns if c not in planned]
-    where = f"--plan was made from '{plan.source.get('file')}'"
-    if missing or extra:
-        parts = []
-        if missing:
-            parts.append(f"missing from the file: {', '.join(missing)}")
-        if extra:
-            parts.append(f"not in the plan: {', '.join(extra)}")
-        message = f"{where} and its columns do not match '{table.path}' ({'; '.join(parts)})"
+    warnings: list[str] = []
+
+    def mismatch(message: str, advice: str) -> None:
         if not force:
-            raise PlanError(message + "; run score on this file, or pass --force to fill the "
-                                      "planned columns present and pass the others through")
+            raise PlanError(f"{message}; {advice}")
         warnings.append(message)
+
+    where = f"{param('plan')} was made from '{plan.source.get('file')}'"
+    differences = column_differences(list(plan.columns), list(table.frame.columns),
+                                     lacking="missing from the file", extra="not in the plan")
+    if differences:
+        mismatch(f"{where} and its columns do not match '{table.path}' ({differences})",
+                 f"run score on this file, or pass {param('force')} to fill the planned "
+                 "columns present and pass the others through")
     fingerprint = plan.source.get("fingerprint", "")
     if content and fingerprint and fingerprint != f"sha256:{table.fingerprint}":
-        message = (f"{where}, and '{table.path}' has different content "
-                   f"(fingerprint {fingerprint[:19]}... vs sha256:{table.fingerprint[:12]}...)")
-        if not force:
-            raise PlanError(message + "; pass --force to fill it with the same plan (methods are "
-                                      "fitted on this file), or run score on it")
-        warnings.append(message)
+        mismatch(f"{where}, and '{table.path}' has different content (fingerprint "
+                 f"{fingerprint[:19]}... vs sha256:{table.fingerprint[:12]}...)",
+                 f"pass {param('force')} to fill it with the same plan (methods are fitted on "
+                 "this file), or run score on it")
     return warnings
+
+
+def column_differences(planned: list[str], present: list[str], *, lacking: str,
+                       extra: str) -> str:
+    """How a plan's columns and a table's differ, ``""`` when they do not.
+
+    Returns
+    -------
+    str
+        ``"LACKING: a, b; EXTRA: c"``: the planned columns the table lacks, after ``lacking``,
+        then the table's columns the plan does not know, after ``extra``.
+    """
+    parts = []
+    missing = [c for c in planned if c not in present]
+    added = [c for c in present if c not in planned]
+    if missing:
+        parts.append(f"{lacking}: {', '.join(missing)}")
+    if added:
+        parts.append(f"{extra}: {', '.join(added)}")
+    return "; ".join(parts)
 
 
 def clean_with_plan(table: Table, plan: Plan) -> tuple[pd.DataFrame, dict[str, dict[str, int]]]:
@@ -359,41 +375,6 @@ def _make_method(name: str, params: Mapping[str, Any], columns: list[str], seed:
     return method
 
 
-def render_text(
-    table: Table, before: pd.DataFrame, after: pd.DataFrame, specs: Mapping[str, ColumnSpec]
-) -> pd.DataFrame:
-    """The original text of a CSV table with only the filled cells rewritten.
-
-    Observed cells keep their exact text; filled numbers are written with the column's own
-    number of decimals and decimal mark, timestamps in the column's own format.
-    """
-    out = table.frame[list(after.columns)].copy()
-    for name in after.columns:
-        if name not in specs or name not in before.columns:
-            continue
-        holes = before[name].isna().to_numpy() & after[name].notna().to_numpy()
-        if not holes.any():
-            continue
-        values = after[name].to_numpy()[holes]
-        text = [_format(v, specs[name], table.decimal) for v in values]
-        column = out[name].copy()
-        column.iloc[np.flatnonzero(holes)] = text
-        out[name] = column
-    return out
-
-
-def _format(value: Any, spec: ColumnSpec, decimal: str) -> str:
-    if spec.kind == "datetime":
-        stamp = pd.Timestamp(value)
-        return stamp.strftime(spec.date_format) if spec.date_format else stamp.isoformat()
-    if spec.kind == "numeric" or isinstance(value, float | np.floating | int | np.integer):
-        if spec.integer or (isinstance(value, int | np.integer)):
-            return str(int(round(float(value))))
-        text = f"{float(value):.{spec.decimals}f}" if spec.decimals else repr(float(value))
-        return text.replace(".", ",") if decimal == "," else text
-    return str(value)
-
-
 def fill_table(
     table: Table,
     plan: Plan,
@@ -409,9 +390,9 @@ def fill_table(
     table : Table
     plan : Plan
     fit_on : Table, optional
-        Reference table to fit the methods on (``--fit-on``); its fingerprint is not checked.
+        Reference table to fit the methods on; its fingerprint is not checked.
     force : bool
-        Proceed past a fingerprint or column mismatch (``--force``).
+        Proceed past a fingerprint or column mismatch.
     text_output : bool
         For CSV input, return the original text with filled cells rewritten (for CSV output);
         otherwise the typed frame (for Parquet output).
@@ -432,7 +413,7 @@ def fill_table(
 
 def checked_clean(table: Table, plan: Plan, report: FillReport, *, fit_on: Table | None = None,
                   force: bool = False) -> tuple[pd.DataFrame, pd.DataFrame | None]:
-    """Check a plan against the table (and the ``--fit-on`` reference), then clean both.
+    """Check a plan against the table (and the ``fit_on`` reference), then clean both.
 
     Returns
     -------
@@ -447,7 +428,8 @@ def checked_clean(table: Table, plan: Plan, report: FillReport, *, fit_on: Table
         lacking = [c for c in plan.columns if c in table.frame.columns
                    and c not in fit_on.frame.columns]
         if lacking:
-            raise DataError(f"--fit-on '{fit_on.path}' lacks columns {', '.join(lacking)}")
+            raise DataError(f"{param('fit_on')} '{fit_on.path}' lacks columns "
+                            f"{', '.join(lacking)}")
         # The methods are fitted on the reference, which must be the planned file; the file
         # to fill is new by design, so only its columns are checked.
         report.warnings.extend(check_plan(plan, fit_on, force=force))
@@ -459,7 +441,8 @@ def checked_clean(table: Table, plan: Plan, report: FillReport, *, fit_on: Table
         reference, _ = clean_with_plan(fit_on, plan)
         missing = [c for c in plan.columns if c in typed.columns and c not in reference.columns]
         if missing:
-            raise DataError(f"--fit-on '{fit_on.path}' lacks columns {', '.join(missing)}")
+            raise DataError(f"{param('fit_on')} '{fit_on.path}' lacks columns "
+                            f"{', '.join(missing)}")
     return typed, reference
 
 
@@ -470,7 +453,7 @@ def finish_output(table: Table, plan: Plan, typed: pd.DataFrame, filled: pd.Data
     For CSV input with ``text_output``, the original text of every observed cell.
     """
     filled = filled.copy()
-    for name in typed.columns:  # unplanned columns pass through in place (with --force)
+    for name in typed.columns:  # unplanned columns pass through in place (with ``force``)
         if name not in plan.columns:
             filled[name] = typed[name]
     filled = filled[[c for c in typed.columns if c in filled.columns]]
@@ -479,8 +462,6 @@ def finish_output(table: Table, plan: Plan, typed: pd.DataFrame, filled: pd.Data
         out = render_text(table, typed, filled, _specs(plan))
         return pd.concat([out, flags.astype("str")], axis=1)
     return pd.concat([filled, flags], axis=1)
-
-
 
 
 def missing_indicators(typed: pd.DataFrame, plan: Plan, columns: Any) -> pd.DataFrame:

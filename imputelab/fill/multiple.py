@@ -50,7 +50,7 @@ constant
     A chosen value ("blank means none") is not a guess: it is the same in every table.
 
 Donors for matching and the bootstrap are the observed cells of the table being drawn for
-(the training table in the usual ``fill --draws`` run), and so is the count n in the
+(the training table, unless ``fit_on`` names another), and so is the count n in the
 intercept's posterior variance of a replayed chained-linear model. Drawn fills go through the same
 decoding as a single fill: clipped to the training range, rounded to whole numbers, decimals
 or the datetime resolution, labels from the training labels; observed cells never change.
@@ -72,7 +72,8 @@ from sklearn.linear_model import BayesianRidge, LogisticRegression
 from sklearn.neighbors import NearestNeighbors
 from threadpoolctl import ThreadpoolController
 
-from imputelab.errors import DataError, OptionError, PlanError
+from imputelab.checks import check_seed
+from imputelab.errors import DataError, OptionError, PlanError, param
 from imputelab.fill.frame import (
     FillReport,
     FittedFill,
@@ -161,8 +162,7 @@ def iter_draws(fitted: FittedFill, typed: pd.DataFrame, m: int, *, seed: int,
     """Yield the tables of :func:`draw_datasets` one at a time (to write each as it comes)."""
     if isinstance(m, bool) or not isinstance(m, int | np.integer) or m < 1:
         raise OptionError(f"the number of drawn tables must be a whole number >= 1, got {m!r}")
-    if isinstance(seed, bool) or not isinstance(seed, int | np.integer) or seed < 0:
-        raise OptionError(f"the seed of the draws must be a whole number >= 0, got {seed!r}")
+    check_seed(seed)
     for group in fitted.groups:
         if not isinstance(group.method, (*_CHAINED, KNNFill, *_MARGINAL, ConstantFill)):
             raise PlanError(f"plan: column '{group.columns[0]}': method {group.method_name} "
@@ -446,7 +446,8 @@ def write_draws(
     report = FillReport()
     out_dir = Path(out_dir)
     if out_dir.exists() and not out_dir.is_dir():
-        raise OptionError(f"--out '{out_dir}' is a file; with --draws it must be a folder")
+        raise OptionError(f"{param('out')} '{out_dir}' is a file; with {param('draws')} it must be "
+                          "a folder")
     typed, reference = checked_clean(table, plan, report, fit_on=fit_on, force=force)
     planned = [c for c in typed.columns if c in plan.columns]
     fitted = fit_plan(typed[planned] if reference is None else reference[planned], plan, report)

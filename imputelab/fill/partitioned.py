@@ -8,7 +8,7 @@ of a CSV file cut at a row's end. Every partition is exactly the frame
 ``map_partitions`` (clean by the plan, fill with the fitted methods, add the indicators: the
 steps of :func:`imputelab.fill.streamed.stream_fill`) gives the values of the single-machine
 fill. The output is a folder of Parquet files, one a partition (``part-00000.parquet``, ...;
-read back in name order they are the table), written into a temporary folder beside ``--out``
+read back in name order they are the table), written into a temporary folder beside ``out_dir``
 and renamed into place when every partition is done.
 
 The fitted methods are shipped to the workers once (scattered), by Dask's own serialization:
@@ -19,15 +19,13 @@ and the output folder at the same path (one machine, or a shared file system).
 A CSV file is cut between rows by counting quotes: a line break ends a row when an even
 number of ``"`` precede it. That holds for files whose quotes enclose whole cells (as every
 CSV writer quotes); a file with a stray quote inside an unquoted cell is refused, with the
-advice to fill it without ``--cluster``.
+advice to fill it on one machine (``stream_fill``).
 """
 
 from __future__ import annotations
 
 import json
 import os
-import shutil
-import tempfile
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
@@ -39,19 +37,12 @@ import pyarrow as pa
 import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
 
-from imputelab.errors import DataError, OptionError, TableIOError
+from imputelab.errors import DataError, OptionError, TableIOError, param
 from imputelab.executors.pool import worker_result
-from imputelab.fill.frame import FillReport, FittedFill, _specs, check_plan, finish_output
-from imputelab.fill.streamed import (
-    _CsvChunks,
-    _Framer,
-    _Job,
-    _ParquetChunks,
-    csv_options,
-    fill_chunk,
-)
-from imputelab.io.columns import new_token_warnings
-from imputelab.io.tables import Table, _short_reason
+from imputelab.fill.chunks import _CsvChunks, _Framer, _ParquetChunks, csv_options
+from imputelab.fill.frame import FillReport, FittedFill, _specs, finish_output
+from imputelab.fill.streamed import _Job, _Totals, check_new_file, fill_chunk
+from imputelab.io.tables import Table, _short_reason, atomic_dir
 from imputelab.score.plan import Plan
 
 __all__ = ["DEFAULT_PARTITION_BYTES", "cluster_fill", "partitions"]
@@ -141,9 +132,10 @@ def _csv_cuts(path: Path, start: int, stop: int, delimiter: str, size: int,
             ~opening & (where + 1 < stop) & ~np.isin(after, list(fences)))
         if bad.any():
             raise OptionError(
-                f"--cluster: {option} '{path}' has a quote inside an unquoted cell (byte "
+                f"{param('cluster')}: {option} '{path}' has a quote inside an unquoted cell (byte "
                 f"{int(where[np.argmax(bad)])}), so it cannot be cut between rows safely; fill "
-                "it without --cluster (--stream), or convert it to Parquet first")
+                f"it without {param('cluster')} ({param('stream')}), or convert it to Parquet "
+                "first")
         if block > start and cuts[-1] < block:
             breaks = np.flatnonzero(view == _LF) + block
             even = (quotes + np.searchsorted(where, breaks)) % 2 == 0
@@ -227,7 +219,7 @@ def _same_schema(folder: Path) -> None:
         except (pa.ArrowInvalid, pa.ArrowNotImplementedError) as exc:
             raise DataError(f"'{part.name}': a partition's columns have other types than the "
                             f"first one's ({_short_reason(exc)}); fill this file without "
-                            "--cluster") from None
+                            f"{param('cluster')}") from None
         pq.write_table(table, part)
 
 
@@ -276,69 +268,47 @@ def cluster_fill(
         Unreadable input, missing columns, an existing ``out_dir``, a CSV file that cannot be
         cut between rows.
     """
-    from distributed import as_completed
-
     out_dir = Path(out_dir)
     report = report if report is not None else FillReport()
     if out_dir.exists():
-        raise OptionError(f"--out '{out_dir}' exists; with --cluster give a new folder name")
-    parent = out_dir.parent if str(out_dir.parent) else Path(".")
-    if not parent.is_dir():
-        raise TableIOError(f"cannot write '{out_dir}': folder '{parent}' does not exist")
+        raise OptionError(f"{param('out')} '{out_dir}' exists; with {param('cluster')} give a new "
+                          "folder name")
     frame, delimiter, decimal = partitions(path, partition_bytes=partition_bytes,
                                            option=option)
     columns = [str(c) for c in frame.columns]
-    needed = [c for c in fitted.encoding.kinds if c not in columns]
-    if needed:
-        raise DataError(f"{option} '{path}' lacks columns the fitted plan uses: "
-                        f"{', '.join(needed)}")
-    shape = Table(pd.DataFrame(columns=columns), Path(path), "parquet")
-    report.warnings.extend(check_plan(plan, shape, force=True, content=False))
+    check_new_file(columns, Path(path), fitted, plan, report, option)
     framer = _Framer("csv" if Path(path).suffix.lower() == ".csv" else "parquet", columns)
     job = _Job(fitted, plan, framer, Path(path), delimiter, decimal, "parquet", _specs(plan))
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", suffix=".part", dir=parent))
-    umask = os.umask(0)
-    os.umask(umask)
-    os.chmod(tmp, 0o777 & ~umask)  # mkdtemp makes an owner-only folder; outputs follow the umask
-    try:
+    with atomic_dir(out_dir) as tmp:
         [shipped] = client.scatter([job], broadcast=True, hash=False)
         reports = frame.map_partitions(_fill_partition, shipped, str(tmp),
                                        meta=pd.DataFrame({"report": []}, dtype=object),
                                        enforce_metadata=False, align_dataframes=False)
-        futures = client.compute(reports.to_delayed())
-        found: dict[str, Any] = {}
-        for done, future in enumerate(as_completed(futures), start=1):
-            try:
-                found[future.key] = worker_result(future)
-            except OSError as exc:
-                raise TableIOError(
-                    f"a worker could not read {option} '{path}' or write '{out_dir}' "
-                    f"({_short_reason(exc)}); every worker must see both paths (one machine "
-                    "or a shared file system)") from None
-            if progress is not None:
-                progress(done, len(futures))
-        parts = [json.loads(found[f.key]["report"].iloc[0]) for f in futures]
+        parts = _gather(client.compute(reports.to_delayed()), progress,
+                        f"{option} '{path}'", out_dir)
         _same_schema(tmp)
-        os.replace(tmp, out_dir)
-    finally:
-        if tmp.exists():
-            shutil.rmtree(tmp)
-    _merge(report, parts)
-    return report
-
-
-def _merge(report: FillReport, parts: list[dict[str, Any]]) -> None:
-    """Add the partitions' reports up, as stream_fill adds its chunks'."""
-    tokens: dict[str, dict[str, int]] = {}
+    totals = _Totals(report)
     for part in parts:
-        for name, count in part["filled"].items():
-            report.filled[name] = report.filled.get(name, 0) + count
-        for name, found in part["tokens"].items():
-            merged = tokens.setdefault(name, {})
-            for token, count in found.items():
-                merged[token] = merged.get(token, 0) + count
-        report.methods.update(part["methods"])
-        report.dropped, report.excluded = part["dropped"], part["excluded"]
-    for name, found in tokens.items():
-        report.new_tokens[name] = dict(sorted(found.items(), key=lambda kv: (-kv[1], kv[0])))
-    report.warnings.extend(new_token_warnings(report.new_tokens))
+        totals.add(FillReport(**{k: part[k] for k in ("filled", "methods", "dropped",
+                                                      "excluded")}), part["tokens"])
+    return totals.close()
+
+
+
+def _gather(futures: list[Any], progress: Progress | None, source: str,
+            out_dir: Path) -> list[dict[str, Any]]:
+    """The partitions' reports, in partition order, gathered as the workers finish."""
+    from distributed import as_completed
+
+    found: dict[str, Any] = {}
+    for done, future in enumerate(as_completed(futures), start=1):
+        try:
+            found[future.key] = worker_result(future)
+        except OSError as exc:
+            raise TableIOError(
+                f"a worker could not read {source} or write '{out_dir}' "
+                f"({_short_reason(exc)}); every worker must see both paths (one machine "
+                "or a shared file system)") from None
+        if progress is not None:
+            progress(done, len(futures))
+    return [json.loads(found[f.key]["report"].iloc[0]) for f in futures]

@@ -31,6 +31,7 @@ from typing import Any
 import numpy as np
 from scipy import stats
 
+from imputelab.checks import check_count, check_share
 from imputelab.errors import DataError, OptionError
 
 __all__ = ["PooledResult", "pool", "relative_efficiency"]
@@ -119,8 +120,7 @@ def relative_efficiency(fmi: Any, m: int) -> Any:
     >>> round(relative_efficiency(0.3, 5), 2)
     0.94
     """
-    if m < 1:
-        raise OptionError(f"relative efficiency needs m >= 1 imputations, got {m}")
+    m = check_count(m, "m")
     value = 1.0 / (1.0 + np.asarray(fmi, float) / m)
     return value if np.ndim(value) else float(value)
 
@@ -135,6 +135,36 @@ def _as_table(values: Any, what: str) -> np.ndarray:
     if not np.isfinite(array).all():
         raise DataError(f"pool: {what} must be finite numbers")
     return array
+
+
+def _checked_pair(estimates: Any, variances: Any, df_complete: float | None
+                  ) -> tuple[np.ndarray, np.ndarray]:
+    """The estimates and variances as (m, k) tables, checked for Rubin's rules."""
+    if df_complete is not None and not df_complete > 0:
+        raise OptionError(f"pool: df_complete must be positive, got {df_complete}")
+    q = _as_table(estimates, "estimates")
+    u = _as_table(variances, "variances")
+    if q.shape != u.shape:
+        raise DataError(f"pool: estimates and variances differ in shape: {np.shape(estimates)} "
+                        f"vs {np.shape(variances)}")
+    if q.shape[0] < 2:
+        raise DataError(f"pool: Rubin's rules need at least 2 imputed datasets, got "
+                        f"{q.shape[0]}")
+    if (u < 0).any():
+        raise DataError("pool: variances must not be negative")
+    return q, u
+
+
+def _degrees_of_freedom(riv: np.ndarray, gamma: np.ndarray, m: int,
+                        df_complete: float | None) -> tuple[np.ndarray, np.ndarray]:
+    """Rubin's ν_m, and the Barnard & Rubin (1999) small-sample ν when ``df_complete``."""
+    with np.errstate(divide="ignore"):
+        df_m = np.where(riv > 0, (m - 1) * (1.0 + 1.0 / np.where(riv > 0, riv, 1.0)) ** 2,
+                        np.inf)
+    if df_complete is None or not np.isfinite(df_complete):
+        return df_m, df_m
+    df_obs = (df_complete + 1.0) / (df_complete + 3.0) * df_complete * (1.0 - gamma)
+    return df_m, 1.0 / (1.0 / df_m + 1.0 / df_obs)
 
 
 def pool(estimates: Any, variances: Any, *, df_complete: float | None = None,
@@ -179,20 +209,9 @@ def pool(estimates: Any, variances: Any, *, df_complete: float | None = None,
     >>> round(result.riv, 3), round(result.df, 1)
     (0.1, 484.0)
     """
-    if not 0.0 < alpha < 1.0:
-        raise OptionError(f"pool: alpha must lie between 0 and 1, got {alpha}")
-    if df_complete is not None and not df_complete > 0:
-        raise OptionError(f"pool: df_complete must be positive, got {df_complete}")
-    q = _as_table(estimates, "estimates")
-    u = _as_table(variances, "variances")
-    if q.shape != u.shape:
-        raise DataError(f"pool: estimates and variances differ in shape: {np.shape(estimates)} "
-                        f"vs {np.shape(variances)}")
+    alpha = check_share(alpha, "alpha")
+    q, u = _checked_pair(estimates, variances, df_complete)
     m = q.shape[0]
-    if m < 2:
-        raise DataError(f"pool: Rubin's rules need at least 2 imputed datasets, got {m}")
-    if (u < 0).any():
-        raise DataError("pool: variances must not be negative")
     scalar = np.ndim(estimates) == 1
 
     q_bar = q.mean(axis=0)
@@ -205,15 +224,8 @@ def pool(estimates: Any, variances: Any, *, df_complete: float | None = None,
     inflated = (1.0 + 1.0 / m) * b
     total = w + inflated
     riv = inflated / w
-    with np.errstate(divide="ignore"):
-        df_m = np.where(riv > 0, (m - 1) * (1.0 + 1.0 / np.where(riv > 0, riv, 1.0)) ** 2,
-                        np.inf)
+    df_m, df = _degrees_of_freedom(riv, inflated / total, m, df_complete)
     fmi = (riv + 2.0 / (df_m + 3.0)) / (riv + 1.0)
-    df = df_m
-    if df_complete is not None and np.isfinite(df_complete):
-        gamma = inflated / total
-        df_obs = (df_complete + 1.0) / (df_complete + 3.0) * df_complete * (1.0 - gamma)
-        df = 1.0 / (1.0 / df_m + 1.0 / df_obs)
     se = np.sqrt(total)
     quantile = np.where(np.isfinite(df), stats.t.ppf(1.0 - alpha / 2.0, np.where(
         np.isfinite(df), df, 1.0)), stats.norm.ppf(1.0 - alpha / 2.0))

@@ -18,7 +18,7 @@ import copy
 import numbers
 import os
 import warnings
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -29,14 +29,16 @@ from sklearn.utils import Tags, check_random_state
 from sklearn.utils._set_output import _get_output_config
 from sklearn.utils.validation import _check_feature_names_in, check_is_fitted, validate_data
 
-from imputelab.errors import ImputelabWarning, PlanError
+from imputelab.checks import check_count, check_seed, check_share
+from imputelab.errors import ImputelabWarning, OptionError, PlanError, param
 from imputelab.fill.frame import (
     FillReport,
     clean_with_plan,
+    column_differences,
     fit_plan,
     missing_indicators,
-    render_text,
 )
+from imputelab.fill.text import render_text
 from imputelab.io.columns import INDICATOR_SUFFIX, ColumnSpec, infer_spec, new_token_warnings
 from imputelab.io.tables import Table
 from imputelab.masks import get_mask_names
@@ -239,10 +241,7 @@ class PlanImputer(TransformerMixin, BaseEstimator):
         if state is None:
             return None
         if isinstance(state, numbers.Integral) and not isinstance(state, bool):
-            if state < 0:
-                raise ValueError(f"PlanImputer(random_state={state}): give a seed of 0 or "
-                                 "more, a RandomState or None")
-            return int(state)
+            return _checked(check_seed, state, "random_state")
         if isinstance(state, np.random.RandomState):
             return int(check_random_state(state).randint(np.iinfo(np.int32).max))
         raise ValueError(f"PlanImputer(random_state={state!r}): give an int, a RandomState or "
@@ -259,7 +258,7 @@ class PlanImputer(TransformerMixin, BaseEstimator):
         if plan.settings.get("use_target"):
             raise PlanError("the plan fills with its target column as a feature "
                             "(use_target), which transform never sees; score without "
-                            "--use-target")
+                            f"{param('use_target')}")
         for col in plan.columns.values():
             # A plan written by hand may say only the kind; the cleaning then reads the
             # cells with that kind's defaults.
@@ -267,15 +266,11 @@ class PlanImputer(TransformerMixin, BaseEstimator):
         target = plan.settings.get("target")
         if target in plan.columns and target not in names:
             del plan.columns[target]  # the target stays outside X in a pipeline
-        missing = [n for n in plan.columns if n not in names]
-        extra = [n for n in names if n not in plan.columns]
-        if missing or extra:
-            parts = []
-            if missing:
-                parts.append(f"planned but not in X: {', '.join(missing)}")
-            if extra:
-                parts.append(f"in X but not in the plan: {', '.join(extra)}")
-            raise PlanError(f"the plan's columns do not match X ({'; '.join(parts)}); "
+        differences = column_differences(list(plan.columns), names,
+                                         lacking="planned but not in X",
+                                         extra="in X but not in the plan")
+        if differences:
+            raise PlanError(f"the plan's columns do not match X ({differences}); "
                             "make the plan from data with these columns (x0, x1, ... for an "
                             "array)")
         return plan
@@ -283,21 +278,16 @@ class PlanImputer(TransformerMixin, BaseEstimator):
     def _score(self, table: Table, seed: int) -> Plan:
         methods = self._names(self.methods, "methods", METHODS)
         masks = self._names(self.masks, "masks", get_mask_names())
-        if (not isinstance(self.repeats, numbers.Integral) or isinstance(self.repeats, bool)
-                or self.repeats < 1):
-            raise ValueError(f"PlanImputer(repeats={self.repeats!r}): give a whole number of "
-                             "at least 1")
-        if not isinstance(self.rate, numbers.Real) or not 0.0 < self.rate < 1.0:
-            raise ValueError(f"PlanImputer(rate={self.rate!r}): give a share strictly "
-                             "between 0 and 1")
+        repeats = _checked(check_count, self.repeats, "repeats")
+        rate = _checked(check_share, self.rate, "rate")
         jobs = 1 if self.n_jobs is None else self.n_jobs
         if not isinstance(jobs, numbers.Integral) or jobs == 0:
             raise ValueError(f"PlanImputer(n_jobs={self.n_jobs!r}): give a non-zero whole "
                              "number or None")
         survey = SurveyOptions(kinds=_kind_overrides(table.frame),
                                diagnostics=bool(self.diagnostics), seed=seed)
-        options = ScoreOptions(survey=survey, masks=masks, rate=float(self.rate),
-                               repeats=int(self.repeats), seed=seed, methods=methods,
+        options = ScoreOptions(survey=survey, masks=masks, rate=rate,
+                               repeats=repeats, seed=seed, methods=methods,
                                n_jobs=int(jobs))
         plan, _, _ = score_table(table, options)
         return plan
@@ -418,6 +408,14 @@ class PlanImputer(TransformerMixin, BaseEstimator):
                 frame[name] = _read_objects(frame[name])
             _check_column(name, frame[name])
         return frame, original
+
+
+def _checked(check: Callable[..., Any], value: Any, name: str) -> Any:
+    """A parameter check of :mod:`imputelab.checks`, failing as scikit-learn estimators fail."""
+    try:
+        return check(value, name)
+    except OptionError as exc:
+        raise ValueError(f"PlanImputer: {exc}") from None
 
 
 def _kind_overrides(frame: pd.DataFrame) -> dict[str, str]:

@@ -14,6 +14,7 @@ import hashlib
 import io
 import os
 import re
+import shutil
 import tempfile
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -26,8 +27,8 @@ import pyarrow.parquet as pq
 
 from imputelab.errors import DataError, TableIOError
 
-__all__ = ["FORMATS", "Table", "atomic_path", "check_file", "file_fingerprint", "read_table",
-           "table_format", "write_table"]
+__all__ = ["FORMATS", "Table", "atomic_dir", "atomic_path", "check_file", "file_fingerprint",
+           "read_table", "table_format", "write_table"]
 
 FORMATS = {".csv": "csv", ".parquet": "parquet", ".pq": "parquet"}
 _SNIFF_BYTES = 1 << 16
@@ -318,6 +319,57 @@ def atomic_path(target: str | os.PathLike[str]) -> Iterator[Path]:
     finally:
         if tmp.exists():
             tmp.unlink()
+
+
+@contextmanager
+def atomic_dir(target: str | os.PathLike[str], *, replace: bool = False) -> Iterator[Path]:
+    """Yield a temporary folder beside ``target``; rename it to ``target`` on success.
+
+    ``target`` must not exist or be an empty folder, unless ``replace``: then a folder there
+    is moved aside, the new one renamed into place, and the old one removed (put back when
+    the rename fails). Whether a folder may be replaced is the caller's decision.
+
+    On any exception the temporary folder is removed and ``target`` is left as it was.
+
+    Raises
+    ------
+    TableIOError
+        When the parent folder does not exist, or the folder cannot be renamed into place.
+    """
+    target = Path(target)
+    parent = target.parent if str(target.parent) else Path(".")
+    if not parent.is_dir():
+        raise TableIOError(f"cannot write '{target}': folder '{parent}' does not exist")
+    tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".part", dir=parent))
+    try:
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o777 & ~umask)  # mkdtemp makes owner-only folders; outputs follow the umask
+        yield tmp
+        try:
+            if replace and target.exists():
+                _swap_dir(tmp, target, parent)
+            else:
+                os.replace(tmp, target)  # atomic; an empty folder there is replaced
+        except OSError as exc:
+            raise TableIOError(f"cannot write '{target}': {exc.strerror or exc}") from None
+    finally:
+        if tmp.exists():
+            shutil.rmtree(tmp, ignore_errors=True)
+
+
+def _swap_dir(new: Path, target: Path, parent: Path) -> None:
+    """Put folder ``new`` where folder ``target`` is; the old one back if that fails."""
+    old = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".old", dir=parent))
+    try:
+        os.replace(target, old / "previous")
+        try:
+            os.replace(new, target)
+        except OSError:
+            os.replace(old / "previous", target)
+            raise
+    finally:
+        shutil.rmtree(old, ignore_errors=True)
 
 
 def write_table(
