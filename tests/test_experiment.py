@@ -23,6 +23,7 @@ from imputelab.methods import get_method
 from imputelab.methods.simple import MedianFill
 from imputelab.score.build import ScoreOptions, score_table
 from imputelab.score.experiment import run_experiment
+from imputelab.score.heldout import draw_held_out, expected_errors
 from imputelab.score.plan import Plan
 from imputelab.survey.table import SurveyOptions
 
@@ -393,12 +394,102 @@ def test_bayes_optimal_fill_is_found_and_scored_when_x_is_always_seen(bivariate_
 def test_bayes_optimal_nrmse_when_both_columns_are_scored(bivariate_csv):
     # When x is scored too, its cells are hidden independently (MCAR per column), so a share
     # RATE of the hidden y cells have no x either; for those the best fill is the mean (error
-    # variance 1). Same theorem: expected best NRMSE is sqrt(RATE + (1 - RATE)(1 - rho^2)).
+    # variance 1). Same theorem: expected best NRMSE is sqrt(s + (1 - s)(1 - rho^2)), s the
+    # share of x missing in the fit. In the selection draws x also lacks its held-out cells
+    # (RATE of them, and the draw's RATE of the rest): s = RATE + (1 - RATE) RATE. In the
+    # held-out fit x lacks only its held-out cells: s = RATE.
     path, *_ = bivariate_csv
     options = ScoreOptions(masks=("mcar",), repeats=3, methods=BAYES_METHODS)
     plan, _, _ = score_table(read_table(path), options)
-    best = math.sqrt(RATE + (1 - RATE) * (1 - RHO**2))
+    share = RATE + (1 - RATE) * RATE
+    best = math.sqrt(share + (1 - share) * (1 - RHO**2))
     column = plan.columns["y"]
     assert column.method == "chained-linear"
     assert column.scores["chained-linear"]["nrmse"] == pytest.approx(best, rel=0.05)
     assert column.scores["mean"]["nrmse"] == pytest.approx(1.0, abs=0.05)
+    held_out_best = math.sqrt(RATE + (1 - RATE) * (1 - RHO**2))
+    assert column.expected_error["score"] == pytest.approx(held_out_best, rel=0.1)
+
+
+# ---------------------------------------------------------------------- held-out cells
+
+
+def test_held_out_cells_are_never_hidden_and_missing_in_every_selection_fit(monkeypatch):
+    working = trip_working()
+    columns = list(KINDS)
+    masks, repeats = ("mcar", "mnar"), 2
+    held = draw_held_out(working, columns, masks, 0.2, seed=3)
+    # Without the held-out set, the selection draws would hide some of its cells: the checks
+    # below are not empty.
+    plain = experiment.draw_hidden(working, columns, masks, 0.2, repeats, 3)
+    assert any((hidden & held[mask]).any() for mask, _, hidden in plain)
+    spy = Spy(KINDS)
+    monkeypatch.setattr(experiment, "get_method", spy)
+    result = run_experiment(working, KINDS, columns, methods=CHEAP, masks=masks,
+                            repeats=repeats, seed=3, held_out=held)
+    for mask, _, hidden in result.draws:
+        assert held[mask].any()
+        assert not (hidden & held[mask]).any()
+        assert hidden.any()
+    # one task per (mask, repeat, method), in that order with one job: every fit of a mask's
+    # draws has that mask's held-out cells missing (never training data)
+    assert len(spy.seen) == len(masks) * repeats * len(CHEAP)
+    per_mask = repeats * len(CHEAP)
+    for i, (_, pattern, _) in enumerate(spy.seen):
+        assert pattern[held[masks[i // per_mask]]].all()
+
+
+def test_held_out_fits_see_only_the_held_out_cells_missing(monkeypatch):
+    working = trip_working()
+    columns = list(KINDS)
+    held = draw_held_out(working, columns, ("mcar",), 0.2, seed=4)
+    spy = Spy(KINDS)
+    monkeypatch.setattr(experiment, "get_method", spy)
+    found = expected_errors(working, KINDS, columns, held,
+                            {"transit_h": ("chained-linear", {}), "temp_c": ("mean", {}),
+                             "depot": ("mode", {})},
+                            {"transit_h": "nrmse", "temp_c": "nrmse", "depot": "pfc"}, seed=4)
+    assert [name for name, _, _ in spy.seen] == ["chained-linear", "mean", "mode"]
+    for _, pattern, _ in spy.seen:
+        np.testing.assert_array_equal(pattern, held["mcar"] | working[columns].isna().to_numpy())
+    # NRMSE of the mean fill on the held-out cells, recomputed with scikit-learn's
+    # SimpleImputer (mean of the observed cells) and mean_squared_error, divided by the
+    # observed values' standard deviation (ddof=0)
+    j = columns.index("temp_c")
+    train = working["temp_c"].to_numpy(float).copy()
+    cells = held["mcar"][:, j]
+    truth = train[cells]
+    train[cells] = np.nan
+    guess = SimpleImputer(strategy="mean").fit(train.reshape(-1, 1)).statistics_[0]
+    want = math.sqrt(mean_squared_error(truth, np.full(len(truth), guess)))
+    want /= np.nanstd(working["temp_c"].to_numpy(float))
+    assert found["temp_c"] == {"metric": "nrmse", "score": pytest.approx(want), "se": None,
+                               "draws": 1}
+    assert found["depot"]["metric"] == "pfc" and 0 <= found["depot"]["score"] <= 1
+
+
+def test_the_plan_quotes_the_held_out_error_and_fixed_seeds_give_the_same_bytes(
+        bivariate_csv, tmp_path):
+    path, *_ = bivariate_csv
+    options = ScoreOptions(masks=("mcar", "mar"), repeats=2, methods=["mean", "chained-linear"])
+    first, _, _ = score_table(read_table(path), options)
+    second, _, _ = score_table(read_table(path), options)
+    assert first.to_json() == second.to_json()
+    column = first.columns["y"]
+    error = column.expected_error
+    assert error["metric"] == "nrmse" and error["draws"] == 2 and error["se"] is not None
+    assert f"Held-out expected error: nrmse {error['score']:.3g}" in column.reason
+    assert "selection scores over 4 masked draws" in column.reason
+    # Same theorem as above: no fill beats sqrt(RATE + (1 - RATE)(1 - rho^2)) in
+    # expectation; a held-out figure far below it would mean the truth leaked.
+    assert error["score"] > 0.8 * math.sqrt(RATE + (1 - RATE) * (1 - RHO**2))
+    loaded = Plan.load(first.save(tmp_path / "plan.json"))
+    again = loaded.columns["y"].expected_error
+    assert again["metric"] == "nrmse" and again["draws"] == 2
+    assert again["score"] == pytest.approx(error["score"], rel=1e-5)
+    data = json.loads(first.to_json())
+    data["version"] = 2
+    for col in data["columns"].values():
+        del col["expected_error"]
+        col.pop("structural", None)
+    assert Plan.from_dict(data).columns["y"].expected_error is None

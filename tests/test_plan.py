@@ -172,10 +172,10 @@ def test_the_json_layout_is_the_documented_one():
     data = json.loads(make_plan().to_json())
     assert list(data) == ["format", "version", "source", "settings", "downstream", "columns"]
     assert data["format"] == PLAN_FORMAT == "imputelab-plan"
-    assert data["version"] == PLAN_VERSION == 2
+    assert data["version"] == PLAN_VERSION == 3
     assert list(data["columns"]["payload_kg"]) == [
         "kind", "missing_fraction", "action", "method", "params", "reason", "scores",
-        "skipped", "cleaning", "indicator", "evidence",
+        "skipped", "cleaning", "indicator", "evidence", "expected_error", "structural",
     ]
 
 
@@ -250,12 +250,12 @@ def plan_data() -> dict:
     return json.loads(make_plan().to_json())
 
 
-@pytest.mark.parametrize("version", [3, 0, "1", None])
+@pytest.mark.parametrize("version", [4, 0, "1", None])
 def test_an_unknown_version_is_refused_and_named(version):
     data = plan_data()
     data["version"] = version
     with pytest.raises(PlanError, match=re.escape(f"is plan version {version!r}; this "
-                                                  "imputelab reads versions 1 and 2")):
+                                                  "imputelab reads versions 1, 2 and 3:")):
         Plan.from_dict(data)
 
 
@@ -397,13 +397,46 @@ def test_a_failed_first_save_leaves_nothing(tmp_path, monkeypatch):
     assert listing(tmp_path) == []
 
 
-def test_a_version_1_plan_still_loads_without_indicator_or_evidence():
+@pytest.mark.parametrize(("version", "absent"), [
+    (1, ("indicator", "evidence", "expected_error", "structural")),
+    (2, ("expected_error", "structural")),
+])
+def test_older_plans_still_load_without_the_newer_fields(version, absent):
     data = plan_data()
-    data["version"] = 1
+    data["version"] = version
     for col in data["columns"].values():
-        del col["indicator"], col["evidence"]
+        for key in absent:
+            del col[key]
     plan = Plan.from_dict(data)
-    assert all(col.indicator is False and col.evidence == {} for col in plan.columns.values())
+    defaults = {"indicator": False, "evidence": {}, "expected_error": None, "structural": None}
+    for col in plan.columns.values():
+        assert all(getattr(col, key) == defaults[key] for key in absent)
+    assert plan.columns["payload_kg"].method == "knn"
+
+
+def test_expected_error_and_structural_rule_round_trip():
+    plan = make_plan()
+    col = plan.columns["payload_kg"]
+    col.expected_error = {"metric": "nrmse", "score": 0.7234567, "se": None, "draws": 3}
+    col.structural = {"when": "depot == 'Hull'", "other": "depot", "op": "==",
+                      "values": ["Hull"], "value": -1.0}
+    back = Plan.from_dict(json.loads(plan.to_json()))
+    assert back.columns["payload_kg"].expected_error == {"metric": "nrmse", "score": 0.723457,
+                                                         "se": None, "draws": 3}
+    assert back.columns["payload_kg"].structural == col.structural
+
+
+@pytest.mark.parametrize(("rule", "message"), [
+    ("x", "must be a JSON object or null"),
+    ({"other": "depot", "op": "==", "values": ["Hull"]}, "lacks value"),
+    ({"other": "depot", "op": "<", "values": [1], "value": 0}, "op\" must be one of"),
+    ({"other": "depot", "op": "in", "values": [], "value": 0}, "values\" must be a list"),
+])
+def test_a_malformed_structural_rule_is_refused(rule, message):
+    data = plan_data()
+    data["columns"]["payload_kg"]["structural"] = rule
+    with pytest.raises(PlanError, match=f"column 'payload_kg': .*{message}"):
+        Plan.from_dict(data)
 
 
 @pytest.mark.parametrize("value", ["yes", 1, None])

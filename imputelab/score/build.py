@@ -22,6 +22,7 @@ from imputelab.methods import METHODS, get_method_names
 from imputelab.methods.blend import COMPONENTS
 from imputelab.metrics.scores import PRIMARY, get_metric
 from imputelab.score.experiment import ExperimentResult, run_experiment
+from imputelab.score.heldout import draw_held_out, expected_errors
 from imputelab.score.plan import ColumnPlan, Plan, choose_method
 from imputelab.score.target import run_target_experiment
 from imputelab.survey.diagnostics import ABSENT_LABEL
@@ -332,7 +333,8 @@ def plan_from_experiment(
                 fills = "0" if metric_kind == "numeric" else "the new label 'missing'"
                 why += f"; constant fills {fills}"
             plural = "s" if draws != 1 else ""
-            plan.reason = f"{why} (over {draws} masked draw{plural}: {', '.join(options.masks)})"
+            plan.reason = (f"{why} (selection scores over {draws} masked draw{plural}: "
+                           f"{', '.join(options.masks)})")
         elif name in scored:
             plan.method, plan.reason = _fallback(
                 kind, survey.typed[name], why="every candidate method failed on this column")
@@ -492,19 +494,53 @@ def score_table(
         holes = bool(len(scored)) and bool(working[scored].isna().to_numpy().any())
         options = replace(options, masks=DEFAULT_MASKS + (("pattern",) if holes else ()))
     result = None
+    held = draw_held_out(working, scored, options.masks, options.rate, options.seed)
     if scored:
         methods = {m: {} for m in (options.methods or get_method_names())}
         result = run_experiment(
             working, encoding.kinds, scored, methods=methods, masks=options.masks,
             rate=options.rate, repeats=options.repeats, seed=options.seed,
             dtypes=dict(survey.typed.dtypes), n_jobs=options.n_jobs, progress=progress,
-            executor=executor,
+            executor=executor, held_out=held,
         )
     plan = plan_from_experiment(survey, result, options, actions=actions, scored=scored,
                                 sample_rows=len(working))
+    if scored:
+        _held_out_errors(plan, working, encoding.kinds, scored, held, options,
+                         dict(survey.typed.dtypes), executor, progress)
     if target is not None and options.downstream and targets:
         _downstream(plan, survey, encoding, targets, options, progress)
     return plan, survey, result
+
+
+def _held_out_errors(plan: Plan, working: pd.DataFrame, kinds: dict[str, str],
+                     scored: Sequence[str], held: dict[str, np.ndarray], options: ScoreOptions,
+                     dtypes: dict[str, Any], executor: Executor | None,
+                     progress: Callable[[int, int], None] | None) -> None:
+    """Fit each chosen method on the held-out copies; record and quote its expected error."""
+    chosen = {n: (plan.columns[n].method, plan.columns[n].params) for n in scored
+              if plan.columns[n].action == "impute" and plan.columns[n].method}
+    # The error is the primary metric, whatever score ranked the methods.
+    kinds_of = {n: _metric_kind(plan.columns[n].kind) for n in chosen}
+    metrics = {n: options.metrics.get(k, PRIMARY[k]) for n, k in kinds_of.items()}
+    found = expected_errors(working, kinds, scored, held, chosen, metrics, seed=options.seed,
+                            dtypes=dtypes, n_jobs=options.n_jobs, executor=executor,
+                            progress=progress)
+    for name, entry in found.items():
+        col = plan.columns[name]
+        col.expected_error = entry
+        if entry is None:
+            col.reason += ". Held-out expected error: not measurable (no held-out fit scored it)"
+            continue
+        spread = f" ± {entry['se']:.2g} SE" if entry["se"] is not None else ""
+        plural = "s" if entry["draws"] != 1 else ""
+        col.reason += (f". Held-out expected error: {entry['metric']} {entry['score']:.3g}"
+                       f"{spread} ({col.method} refitted without the held-out cells, which "
+                       f"no selection score or weight saw; {entry['draws']} mask{plural})")
+
+
+def _metric_kind(kind: str) -> str:
+    return "numeric" if kind in ("numeric", "datetime") else "categorical"
 
 
 def _downstream(plan: Plan, survey: Survey, encoding: Encoding, targets: list[str],
