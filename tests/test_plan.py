@@ -7,10 +7,13 @@ import math
 import re
 from pathlib import Path
 
+import numpy as np
+import pandas as pd
 import pytest
 
 from imputelab.errors import PlanError
 from imputelab.methods import METHODS
+from imputelab.score.build import _table_choice
 from imputelab.score.plan import PLAN_FORMAT, PLAN_VERSION, ColumnPlan, Plan, choose_method
 
 # The registry's own ranks: mean/median/mode 1 < knn 2 < chained-linear 3 < forest 4 < boosted 5.
@@ -457,3 +460,36 @@ def test_ranking_metric_is_the_primary_metric_or_the_choose_by_score():
     assert Plan(source={}, settings={}, columns={}).ranking_metric("numeric") == "nrmse"
     ranked = Plan(source={}, settings={"choose_by": "distribution"}, columns={})
     assert ranked.ranking_metric("categorical") == "distribution"
+
+
+# ------------------------------------------------------------------- the table's leader
+
+
+def _draw_rows(per_method: dict[str, list[float]]) -> pd.DataFrame:
+    return pd.DataFrame([{"mask": "mcar", "repeat": r, "method": m, "nrmse": v}
+                         for m, values in per_method.items() for r, v in enumerate(values)])
+
+
+def test_a_small_lead_is_written_in_significant_digits_not_rounded_to_zero():
+    leader = [0.500020, 0.500030, 0.500040]
+    other = [0.500010, 0.500034, 0.500022]  # ahead by 8e-06 on average
+    rows = _draw_rows({"blend": leader, "knn": other})
+    usable = {m: (float(np.mean(v)), 0.0) for m, v in
+              {"blend": leader, "knn": other}.items()}
+    chosen, why = _table_choice(rows, "nrmse", usable, False, "blend")
+    # paired SE of the per-draw differences, std(ddof=1) / sqrt(n) (the usual standard
+    # error of a mean), computed with numpy
+    diff = np.array(leader) - np.array(other)
+    se = diff.std(ddof=1) / np.sqrt(len(diff))
+    assert chosen == "blend"
+    assert f"knn is ahead here by {np.mean(diff):.3g}, within two paired standard errors " \
+           f"({se:.2g})" in why
+    assert "by 8e-06" in why and "(0)" not in why
+
+
+def test_a_tie_with_the_leader_is_not_a_lead():
+    rows = _draw_rows({"blend": [0.4, 0.5], "knn": [0.4, 0.5]})
+    chosen, why = _table_choice(rows, "nrmse", {"knn": (0.45, 0.05), "blend": (0.45, 0.05)},
+                                False, "blend")
+    assert chosen == "blend"
+    assert why == "blend has the best mean nrmse over the table's columns and on this one (0.45)"

@@ -215,7 +215,8 @@ def _table_choice(rows: pd.DataFrame, metric: str, usable: dict[str, tuple[float
                   greater: bool, leader: str) -> tuple[str, str]:
     """The table's leading method, unless one beats it here by two paired SEs."""
     sign = -1.0 if greater else 1.0
-    best = min(usable, key=lambda m: sign * usable[m][0])
+    # A tie with the leader is no lead: the leader is the best here too.
+    best = min(usable, key=lambda m: (sign * usable[m][0], m != leader))
     text = f"{leader} has the best mean {metric} over the table's columns"
     if best == leader:
         return leader, f"{text} and on this one ({usable[leader][0]:.4g})"
