@@ -18,10 +18,11 @@ import imputelab.score.experiment as experiment
 from imputelab.errors import OptionError
 from imputelab.executors.seeds import derive_seed
 from imputelab.fill.frame import fill_table
+from imputelab.io.columns import ColumnSpec
 from imputelab.io.tables import read_table
 from imputelab.methods import get_method
 from imputelab.methods.simple import MedianFill
-from imputelab.score.build import ScoreOptions, score_table
+from imputelab.score.build import ScoreOptions, _structural_value, score_table
 from imputelab.score.experiment import run_experiment
 from imputelab.score.heldout import draw_held_out, expected_errors
 from imputelab.score.plan import Plan
@@ -493,3 +494,77 @@ def test_the_plan_quotes_the_held_out_error_and_fixed_seeds_give_the_same_bytes(
         del col["expected_error"]
         col.pop("structural", None)
     assert Plan.from_dict(data).columns["y"].expected_error is None
+
+
+# --------------------------------------------------------------------- structural blanks
+
+
+@pytest.fixture(scope="module")
+def garage_csv(tmp_path_factory):
+    """Houses: no garage (area 0) leaves the garage's year and finish blank; a few years are
+    also lost at random among houses that have a garage."""
+    rng = np.random.default_rng(11)
+    n = 300
+    built = rng.integers(1900, 2000, n)
+    area = np.where(rng.random(n) < 0.2, 0, rng.integers(200, 900, n))
+    year = np.minimum(built + rng.integers(0, 11, n), 2010).astype(float)
+    finish = rng.choice(["rough", "finished"], n).astype(object)
+    none = area == 0
+    year[none] = np.nan
+    finish[none] = None
+    lost = np.flatnonzero(~none)[rng.choice((~none).sum(), 12, replace=False)]
+    year[lost] = np.nan
+    frame = pd.DataFrame({"built": built, "garage_area": area,
+                          "garage_year": pd.array(year, dtype="Int64"),
+                          "garage_finish": finish})
+    path = tmp_path_factory.mktemp("garage") / "houses.csv"
+    frame.to_csv(path, index=False)
+    return path, frame, none, lost
+
+
+def test_a_structural_number_stands_outside_the_observed_range_and_other_blanks_are_modelled(
+        garage_csv, tmp_path):
+    path, frame, none, lost = garage_csv
+    table = read_table(path)
+    options = ScoreOptions(masks=("mcar",), repeats=2, methods=["median", "chained-linear"])
+    plan, _, _ = score_table(table, options)
+    col = plan.columns["garage_year"]
+    low = float(frame["garage_year"].min())
+    # the experiment's choice is kept; the rule and its stand-in are recorded beside it
+    assert col.method in ("median", "chained-linear")
+    assert col.structural == {"when": "garage_area == 0", "other": "garage_area", "op": "==",
+                              "values": [0], "value": low - 1}
+    assert col.indicator
+    assert col.reason.startswith("structural blank: blank when garage_area == 0")
+    assert f"fill writes {low - 1:g}, one unit (1) below the smallest observed value" in \
+        col.reason
+    assert "12 blank(s) outside the rule" in col.reason
+    labels = plan.columns["garage_finish"]
+    assert labels.structural["value"] == "absent"
+    # Fill through the plan's JSON form.
+    loaded = Plan.load(plan.save(tmp_path / "plan.json"))
+    loaded.columns["garage_year"].method, loaded.columns["garage_year"].params = \
+        "chained-linear", {}
+    out, _ = fill_table(table, loaded, text_output=False)
+    years = out["garage_year"].to_numpy(float)
+    assert (years[none] == low - 1).all()  # the stand-in exactly where the rule holds
+    # the blanks outside the rule get the model's fill: inside the observed range and close
+    # to the house's own year (the year is built + 0..10 by construction)
+    assert (years[lost] >= low).all() and (years[lost] != low - 1).all()
+    assert np.abs(years[lost] - (frame["built"].to_numpy()[lost] + 5)).max() < 15
+    observed = frame["garage_year"].notna().to_numpy()
+    np.testing.assert_array_equal(years[observed],
+                                  frame["garage_year"].to_numpy(float)[observed])
+    assert (out["garage_finish"][none] == "absent").all()
+    assert (out["garage_finish"][~none] != "absent").all()
+    assert out.columns[-1] == "garage_year__was_missing"
+
+
+def test_zero_stands_in_when_it_is_within_or_next_to_the_observed_range():
+    spec = ColumnSpec(kind="numeric", integer=True)
+    assert _structural_value("numeric", pd.Series([160.0, 900.0, 1488.0]), spec)[0] == 0.0
+    assert _structural_value("numeric", pd.Series([-25.0, 5.0]), spec)[0] == 0.0
+    value, words = _structural_value("numeric", pd.Series([1900.0, 1950.0, 2010.0]), spec)
+    assert value == 1899.0 and "outside every observed value" in words
+    tenths = ColumnSpec(kind="numeric", decimals=1)
+    assert _structural_value("numeric", pd.Series([12.5, 14.0]), tenths)[0] == 12.4

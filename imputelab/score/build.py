@@ -384,7 +384,7 @@ def plan_from_experiment(
 
 
 def _apply_evidence(plan: ColumnPlan, col: ColumnSurvey, values: pd.Series) -> None:
-    """Carry the survey's evidence into the reason; fill structural blanks with a constant."""
+    """Carry the survey's evidence into the reason; record a structural rule with its value."""
     check = col.evidence.get("missingness")
     notes = []
     if check and check.get("auc") is not None:
@@ -398,33 +398,47 @@ def _apply_evidence(plan: ColumnPlan, col: ColumnSurvey, values: pd.Series) -> N
     rule = rules[0] if rules else None
     if rule is not None and METHODS["constant"].unsupported_reason(plan.kind,
                                                                     values.dtype) is None:
-        value = _structural_value(rule, plan.kind)
-        plan.method, plan.params = "constant", {"value": value}
-        observed = pd.to_numeric(values, errors="coerce") if plan.kind == "numeric" else None
-        outside = observed is not None and not (observed.min() <= value <= observed.max())
-        stands = (f"the new label '{value}'" if isinstance(value, str) else
-                  f"{value:g}" + (", outside every observed value" if outside else ""))
+        value, stands = _structural_value(plan.kind, values, col.spec)
+        plan.structural = {"when": rule["when"], "other": rule["other"], "op": rule["op"],
+                           "values": list(rule["values"]), "value": value}
         text = (f"structural blank: blank when {rule['when']} ({rule['support']} rows, "
-                f"{rule['confidence']:.0%} of them blank), so the value does not apply; "
-                f"filled with {stands}")
+                f"{rule['confidence']:.0%} of them blank), so the value does not apply; fill "
+                f"writes {stands} in the blanks where that holds")
         if plan.kind == "numeric":
             # A number standing for "does not apply" must stay tellable from a measurement.
             plan.indicator = True
             text += "; the indicator column tells these rows apart"
-        if rule["unexplained"]:
-            text += (f". {rule['unexplained']} other blank(s) fall outside the rule: likely "
-                     "true missing values, filled with the same constant; change the method "
-                     "to model them")
-        plan.reason = text + (f" [experiment: {plan.reason}]" if plan.reason else "")
+        others = (f"{rule['unexplained']} blank(s) outside the rule, likely true missing "
+                  "values" if rule["unexplained"] else "none outside the rule here")
+        plan.reason = (f"{text}. The column's other blanks ({others}) get {plan.method}: "
+                       f"{plan.reason}")
     if notes:
         plan.reason += ". " + "; ".join(notes)
 
 
-def _structural_value(rule: dict[str, Any], kind: str) -> float | str:
-    """What a structural blank stands for: the label 'absent', or 0 for numbers."""
+def _structural_value(kind: str, values: pd.Series, spec: Any) -> tuple[float | str, str]:
+    """What a structural blank stands for, and those words for the reason.
+
+    Labels: the new label :data:`ABSENT_LABEL`. Numbers: 0 where 0 lies within the observed
+    range or less than the range's width away from it (no garage, no garage area); otherwise
+    0 would be absurd (a build year of 0 among 1900-2010), and the stand-in is one unit of the
+    column's rounding below the smallest observed value (common practice, no source).
+    """
     if kind in ("binary", "categorical"):
-        return ABSENT_LABEL
-    return 0.0
+        return ABSENT_LABEL, f"the new label '{ABSENT_LABEL}'"
+    observed = pd.to_numeric(values, errors="coerce").dropna()
+    if not len(observed):
+        return 0.0, "0"
+    low, high = float(observed.min()), float(observed.max())
+    width = high - low
+    if low - width <= 0.0 <= high + width:
+        where = "within" if low <= 0.0 <= high else "next to (less than its width away)"
+        return 0.0, f"0 ({where} the observed range {low:g} to {high:g})"
+    unit = 1.0 if spec.integer else 10.0 ** -spec.decimals
+    value = float(f"{low - unit:.12g}")
+    return value, (f"{value:g}, one unit ({unit:g}) below the smallest observed value "
+                   f"{low:g}, outside every observed value (0 is far from the observed range "
+                   f"{low:g} to {high:g})")
 
 
 def _distribution_note(summary: dict[str, dict], chosen: str, metric_kind: str) -> str:
