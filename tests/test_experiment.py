@@ -273,7 +273,7 @@ def test_derive_seed_separates_parts_that_concatenate_alike():
 
 def test_a_negative_seed_is_refused_as_an_option():
     # numpy's SeedSequence takes no negative entropy; the option is checked up front.
-    with pytest.raises(OptionError, match="--seed must be 0 or more, got -1"):
+    with pytest.raises(OptionError, match="`seed` must be a whole number of at least 0, got -1"):
         ScoreOptions(seed=-1).validate()
 
 

@@ -343,11 +343,11 @@ def test_a_column_that_is_not_an_object_is_refused(value):
 
 
 def test_load_refuses_a_missing_file_and_bad_json(tmp_path):
-    with pytest.raises(PlanError, match=r"--plan '.*nope\.json': no such file"):
+    with pytest.raises(PlanError, match=r"`plan` '.*nope\.json': no such file"):
         Plan.load(tmp_path / "nope.json")
     bad = tmp_path / "bad.json"
     bad.write_text('{"format": "imputelab-plan",', encoding="utf-8")
-    with pytest.raises(PlanError, match=r"--plan '.*bad\.json' is not valid JSON"):
+    with pytest.raises(PlanError, match=r"`plan` '.*bad\.json' is not valid JSON"):
         Plan.load(bad)
 
 

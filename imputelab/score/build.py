@@ -11,7 +11,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from imputelab.errors import OptionError
+from imputelab.checks import check_choice, check_count, check_seed, check_share
+from imputelab.errors import OptionError, param
 from imputelab.executors.pool import Executor
 from imputelab.executors.seeds import derive_seed
 from imputelab.frame.encoding import Encoding
@@ -108,39 +109,32 @@ class ScoreOptions:
 
     def validate(self) -> None:
         """Check ranges and names; raise :class:`OptionError`."""
-        if not 0.0 < self.rate < 1.0:
-            raise OptionError(f"--rate must be strictly between 0 and 1, got {self.rate}")
-        if self.seed < 0:
-            raise OptionError(f"--seed must be 0 or more, got {self.seed}")
-        if self.repeats < 1:
-            raise OptionError(f"--repeats must be at least 1, got {self.repeats}")
-        if self.sample is not None and self.sample < 20:
-            raise OptionError(f"--sample must be at least 20 rows, got {self.sample}")
+        check_share(self.rate, "rate")
+        check_seed(self.seed)
+        check_count(self.repeats, "repeats")
+        if self.sample is not None:
+            check_count(self.sample, "sample", low=20)
         for name in self.masks or ():
             if name not in get_mask_names():
-                raise OptionError(
-                    f"--masks: unknown mask '{name}'; choose from: {', '.join(get_mask_names())}")
+                raise OptionError(f"{param('masks')}: unknown mask '{name}'; choose from: "
+                                  f"{', '.join(get_mask_names())}")
         if self.masks is not None and not self.masks:
-            raise OptionError("--masks: give at least one mask")
+            raise OptionError(f"{param('masks')}: give at least one mask")
         for name in self.methods or ():
             if name not in METHODS:
                 raise OptionError(
-                    f"--methods: unknown method '{name}'; choose from: "
+                    f"{param('methods')}: unknown method '{name}'; choose from: "
                     f"{', '.join(get_method_names())}")
         if self.methods is not None and not self.methods:
-            raise OptionError("--methods: give at least one method")
-        if self.downstream_folds < 2:
-            raise OptionError(f"--target-folds must be at least 2, got {self.downstream_folds}")
-        if self.choice_rule not in CHOICE_RULES:
-            raise OptionError(f"choice rule must be one of {', '.join(CHOICE_RULES)}, "
-                              f"got '{self.choice_rule}'")
-        if self.choose_by not in CHOOSE_BY:
-            raise OptionError(f"--choose-by must be one of {', '.join(CHOOSE_BY)}, "
-                              f"got '{self.choose_by}'")
+            raise OptionError(f"{param('methods')}: give at least one method")
+        check_count(self.downstream_folds, "target_folds", low=2)
+        check_choice(self.choice_rule, "choice_rule", CHOICE_RULES)
+        check_choice(self.choose_by, "choose_by", CHOOSE_BY)
         for kind, metric in self.metrics.items():
             found = get_metric(metric)
             if found.kind != kind:
-                raise OptionError(f"--metric {metric} is a {found.kind} metric, not {kind}")
+                raise OptionError(f"{param('metric')} {metric} is a {found.kind} metric, "
+                                  f"not {kind}")
 
 
 def _summary(scores: pd.DataFrame, metrics: Sequence[str],
@@ -293,7 +287,7 @@ def plan_from_experiment(
         elif action == "exclude":
             plan.reason = ("the target: never imputed, and not used to fill the others"
                            if name == target and not options.use_target else
-                           "the target: never imputed; used as a feature (--use-target)"
+                           "the target: never imputed; used as a feature (use_target)"
                            if name == target else
                            f"{kind} column: passed through unchanged")
         elif name in scored and result is not None and len(result.scores):

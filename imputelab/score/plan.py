@@ -28,7 +28,7 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
 
-from imputelab.errors import PlanError
+from imputelab.errors import PlanError, param
 from imputelab.io.columns import KINDS
 from imputelab.io.tables import atomic_path
 from imputelab.metrics.scores import PRIMARY
@@ -125,7 +125,7 @@ class Plan:
     def ranking_metric(self, kind: str) -> str:
         """The score the choice ranked a column of ``kind`` by.
 
-        The primary metric of its family (``settings.metrics``), or the ``--choose-by``
+        The primary metric of its family (``settings.metrics``), or the ``choose_by``
         score (``distribution``, ``balanced``) when the plan was made with one.
         """
         choose_by = self.settings.get("choose_by", "accuracy")
@@ -197,10 +197,10 @@ class Plan:
                    columns=columns, downstream=dict(data.get("downstream") or {}))
 
     @classmethod
-    def load(cls, path: str | Path, *, option: str = "--plan") -> Plan:
+    def load(cls, path: str | Path, *, option: str | None = None) -> Plan:
         """Read a plan file."""
         path = Path(path)
-        origin = f"{option} '{path}'"
+        origin = f"{option or param('plan')} '{path}'"
         if not path.is_file():
             raise PlanError(f"{origin}: no such file; make one with 'imputelab score'")
         try:
