@@ -475,7 +475,8 @@ def score_table(
     executor : Executor, optional
         Where the experiment's tasks run (:mod:`imputelab.executors.pool`, e.g. a Dask cluster);
         by default ``options.n_jobs`` local processes. The plan does not depend on it. The
-        survey's checks and the model experiment run here, with ``options.n_jobs``.
+        held-out fits and the target check's grid run there too; the survey's checks run
+        here, with ``options.n_jobs``.
 
     Returns
     -------
@@ -518,7 +519,7 @@ def score_table(
         _held_out_errors(plan, working, encoding.kinds, scored, held, options,
                          dict(survey.typed.dtypes), executor, progress)
     if target is not None and options.downstream and targets:
-        _downstream(plan, survey, encoding, targets, options, progress)
+        _downstream(plan, survey, encoding, targets, options, progress, executor)
     return plan, survey, result
 
 
@@ -553,7 +554,8 @@ def _metric_kind(kind: str) -> str:
 
 
 def _downstream(plan: Plan, survey: Survey, encoding: Encoding, targets: list[str],
-                options: ScoreOptions, progress: Callable[[int, int], None] | None) -> None:
+                options: ScoreOptions, progress: Callable[[int, int], None] | None,
+                executor: Executor | None = None) -> None:
     """Score every fill by a model of the target; recommend indicators where they help."""
     target = options.survey.target
     kind = survey.columns[target].spec.kind
@@ -570,7 +572,7 @@ def _downstream(plan: Plan, survey: Survey, encoding: Encoding, targets: list[st
         features, {n: encoding.kinds[n] for n in features.columns}, targets,
         survey.typed[target], kind, methods=methods, n_splits=options.downstream_folds,
         seed=options.seed, n_jobs=options.n_jobs, dtypes=dict(survey.typed.dtypes),
-        progress=progress,
+        progress=progress, executor=executor,
     )
     plan.downstream = result.to_dict()
     for name, entry in result.indicators.items():

@@ -5,6 +5,12 @@ all scored columns at once; every method sees exactly the same hidden cells. A m
 the columns it can in one fit (a chained method is one model of the whole table), and is then
 scored on each column. Seeds are derived from (seed, mask, repeat, method), never from the
 order in which tasks run, so one job or many give the same numbers.
+
+With ``blend`` and all its components among the methods, the blend costs no fit of its own:
+draw ``r`` is scored with weights fitted on the components' fills of the *other* draws, on
+their hidden cells that draw ``r`` does not hide (cross-fitting: no hidden value of draw ``r``
+is a cell the weights are fitted on; see :mod:`imputelab.methods.blend` for the indirect path
+through the other draws' models), and the plan's weights come from every draw.
 """
 
 from __future__ import annotations
@@ -239,14 +245,13 @@ def run_experiment(
     dtypes : mapping, optional
         The table's dtypes, for methods whose applicability depends on them.
     n_jobs : int
-        Parallel tasks (joblib); BLAS and LightGBM run one thread per task.
+        Parallel tasks (joblib) when no ``executor`` is given; one BLAS thread per task.
     progress : callable, optional
         Called as ``progress(done, total)`` after each task.
     keep_fills : bool
         Keep every method's fills (:attr:`ExperimentResult.fills`).
     executor : Executor, optional
-        Where the tasks run (:mod:`imputelab.executors.pool`), e.g. a Dask cluster; by default
-        ``n_jobs`` local processes. The scores do not depend on it.
+        Where the tasks run (:mod:`imputelab.executors.pool`); the scores do not depend on it.
     held_out : mapping, optional
         ``{mask: cells}``, boolean rows x ``columns`` arrays (see
         :func:`imputelab.score.heldout.draw_held_out`). A mask's held-out cells are missing in
@@ -256,50 +261,46 @@ def run_experiment(
     Returns
     -------
     ExperimentResult
-
-    Notes
-    -----
-    With ``blend`` and all its components among the methods, the blend costs no fit of its
-    own: draw ``r`` is scored with weights fitted on the components' fills of the *other*
-    draws, on their hidden cells that draw ``r`` does not hide (cross-fitting: no hidden
-    value of draw ``r`` is a cell the weights are fitted on; see
-    :mod:`imputelab.methods.blend` for the indirect path through the other draws' models),
-    and the plan's weights come from every draw.
     """
     columns = list(columns)
     held = dict(held_out or {})
     targets, skipped = _method_targets(working, kinds, columns, methods, dtypes or {})
-    scales = column_scales(working, columns)
     draws = draw_hidden(working, columns, masks, rate, repeats, seed, held_out=held)
-    crossfit = "blend" in methods and all(m in methods for m in COMPONENTS)
-    keep = set(methods) if keep_fills else set(COMPONENTS) if crossfit else set()
-    tasks = [
-        (mask_name, repeat, method, methods[method], targets[method],
-         derive_seed(seed, mask_name, repeat, method), method in keep)
-        for mask_name, repeat, _ in draws
-        for method in methods
-        if targets[method] and not (crossfit and method == "blend")
-    ]
     # What every task reads goes out once (scattered to a cluster's workers), not per task.
-    shared = _Shared(working, kinds, columns, scales,
+    shared = _Shared(working, kinds, columns, column_scales(working, columns),
                      {(mask_name, repeat): hidden for mask_name, repeat, hidden in draws}, held)
-    if executor is None:
-        executor = JoblibExecutor(n_jobs)
+    crossfit = "blend" in methods and all(m in methods for m in COMPONENTS)
+    tasks = _tasks(draws, methods, targets, seed, keep_fills, crossfit)
+    executor = executor if executor is not None else JoblibExecutor(n_jobs)
     result = _collect(tasks, executor.map(_grid_task, shared, tasks, progress), methods)
     result.skipped, result.draws, result.held_out = skipped, draws, held
     result.hidden = {mask_name: {c: int(hidden[:, j].sum()) for j, c in enumerate(columns)}
                      for mask_name, repeat, hidden in draws if repeat == 0}
     if crossfit and targets["blend"]:
         _add_blend(result, shared, targets["blend"], keep_fills)
-    records = result.scores
-    result.scores = pd.DataFrame.from_records(records)
-    if len(result.scores):
-        front = ["column", "method", "mask", "repeat", "n_hidden"]
-        result.scores = result.scores[front + [c for c in result.scores.columns
-                                               if c not in front]]
+    result.scores = _tidy(result.scores)
     if not keep_fills:
         result.fills = {}
     return result
+
+
+def _tasks(draws: Sequence[tuple[str, int, np.ndarray]], methods: Mapping[str, Any],
+           targets: Mapping[str, list[str]], seed: int, keep_fills: bool, crossfit: bool
+           ) -> list[tuple]:
+    """One task per (draw, method); a cross-fitted blend needs no task of its own."""
+    keep = set(methods) if keep_fills else set(COMPONENTS) if crossfit else set()
+    return [(mask_name, repeat, method, methods[method], targets[method],
+             derive_seed(seed, mask_name, repeat, method), method in keep)
+            for mask_name, repeat, _ in draws for method in methods
+            if targets[method] and not (crossfit and method == "blend")]
+
+
+def _tidy(records: list[dict[str, Any]]) -> pd.DataFrame:
+    scores = pd.DataFrame.from_records(records)
+    if len(scores):
+        front = ["column", "method", "mask", "repeat", "n_hidden"]
+        scores = scores[front + [c for c in scores.columns if c not in front]]
+    return scores
 
 
 def _method_targets(working: pd.DataFrame, kinds: Mapping[str, str], columns: Sequence[str],
