@@ -22,10 +22,11 @@ from imputelab.io.columns import ColumnSpec
 from imputelab.io.tables import read_table
 from imputelab.methods import get_method
 from imputelab.methods.simple import MedianFill
-from imputelab.score.build import ScoreOptions, _structural_value, score_table
+from imputelab.score.build import ScoreOptions, score_table
 from imputelab.score.experiment import run_experiment
 from imputelab.score.heldout import draw_held_out, expected_errors
 from imputelab.score.plan import Plan
+from imputelab.score.reasons import structural_value as _structural_value
 from imputelab.survey.table import SurveyOptions
 
 CHEAP = {"mean": {}, "median": {}, "mode": {}, "chained-linear": {}}

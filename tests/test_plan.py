@@ -13,7 +13,7 @@ import pytest
 
 from imputelab.errors import PlanError
 from imputelab.methods import METHODS
-from imputelab.score.build import _table_choice
+from imputelab.score.choice import table_choice as _table_choice
 from imputelab.score.plan import PLAN_FORMAT, PLAN_VERSION, ColumnPlan, Plan, choose_method
 
 # The registry's own ranks: mean/median/mode 1 < knn 2 < chained-linear 3 < forest 4 < boosted 5.
