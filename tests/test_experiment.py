@@ -18,12 +18,15 @@ import imputelab.score.experiment as experiment
 from imputelab.errors import OptionError
 from imputelab.executors.seeds import derive_seed
 from imputelab.fill.frame import fill_table
+from imputelab.io.columns import ColumnSpec
 from imputelab.io.tables import read_table
 from imputelab.methods import get_method
 from imputelab.methods.simple import MedianFill
 from imputelab.score.build import ScoreOptions, score_table
 from imputelab.score.experiment import run_experiment
+from imputelab.score.heldout import draw_held_out, expected_errors
 from imputelab.score.plan import Plan
+from imputelab.score.reasons import structural_value as _structural_value
 from imputelab.survey.table import SurveyOptions
 
 CHEAP = {"mean": {}, "median": {}, "mode": {}, "chained-linear": {}}
@@ -271,7 +274,7 @@ def test_derive_seed_separates_parts_that_concatenate_alike():
 
 def test_a_negative_seed_is_refused_as_an_option():
     # numpy's SeedSequence takes no negative entropy; the option is checked up front.
-    with pytest.raises(OptionError, match="--seed must be 0 or more, got -1"):
+    with pytest.raises(OptionError, match="`seed` must be a whole number of at least 0, got -1"):
         ScoreOptions(seed=-1).validate()
 
 
@@ -393,12 +396,176 @@ def test_bayes_optimal_fill_is_found_and_scored_when_x_is_always_seen(bivariate_
 def test_bayes_optimal_nrmse_when_both_columns_are_scored(bivariate_csv):
     # When x is scored too, its cells are hidden independently (MCAR per column), so a share
     # RATE of the hidden y cells have no x either; for those the best fill is the mean (error
-    # variance 1). Same theorem: expected best NRMSE is sqrt(RATE + (1 - RATE)(1 - rho^2)).
+    # variance 1). Same theorem: expected best NRMSE is sqrt(s + (1 - s)(1 - rho^2)), s the
+    # share of x missing in the fit. In the selection draws x also lacks its held-out cells
+    # (RATE of them, and the draw's RATE of the rest): s = RATE + (1 - RATE) RATE. In the
+    # held-out fit x lacks only its held-out cells: s = RATE.
     path, *_ = bivariate_csv
     options = ScoreOptions(masks=("mcar",), repeats=3, methods=BAYES_METHODS)
     plan, _, _ = score_table(read_table(path), options)
-    best = math.sqrt(RATE + (1 - RATE) * (1 - RHO**2))
+    share = RATE + (1 - RATE) * RATE
+    best = math.sqrt(share + (1 - share) * (1 - RHO**2))
     column = plan.columns["y"]
     assert column.method == "chained-linear"
     assert column.scores["chained-linear"]["nrmse"] == pytest.approx(best, rel=0.05)
     assert column.scores["mean"]["nrmse"] == pytest.approx(1.0, abs=0.05)
+    held_out_best = math.sqrt(RATE + (1 - RATE) * (1 - RHO**2))
+    assert column.expected_error["score"] == pytest.approx(held_out_best, rel=0.1)
+
+
+# ---------------------------------------------------------------------- held-out cells
+
+
+def test_held_out_cells_are_never_hidden_and_missing_in_every_selection_fit(monkeypatch):
+    working = trip_working()
+    columns = list(KINDS)
+    masks, repeats = ("mcar", "mnar"), 2
+    held = draw_held_out(working, columns, masks, 0.2, seed=3)
+    # Without the held-out set, the selection draws would hide some of its cells: the checks
+    # below are not empty.
+    plain = experiment.draw_hidden(working, columns, masks, 0.2, repeats, 3)
+    assert any((hidden & held[mask]).any() for mask, _, hidden in plain)
+    spy = Spy(KINDS)
+    monkeypatch.setattr(experiment, "get_method", spy)
+    result = run_experiment(working, KINDS, columns, methods=CHEAP, masks=masks,
+                            repeats=repeats, seed=3, held_out=held)
+    for mask, _, hidden in result.draws:
+        assert held[mask].any()
+        assert not (hidden & held[mask]).any()
+        assert hidden.any()
+    # one task per (mask, repeat, method), in that order with one job: every fit of a mask's
+    # draws has that mask's held-out cells missing (never training data)
+    assert len(spy.seen) == len(masks) * repeats * len(CHEAP)
+    per_mask = repeats * len(CHEAP)
+    for i, (_, pattern, _) in enumerate(spy.seen):
+        assert pattern[held[masks[i // per_mask]]].all()
+
+
+def test_held_out_fits_see_only_the_held_out_cells_missing(monkeypatch):
+    working = trip_working()
+    columns = list(KINDS)
+    held = draw_held_out(working, columns, ("mcar",), 0.2, seed=4)
+    spy = Spy(KINDS)
+    monkeypatch.setattr(experiment, "get_method", spy)
+    found = expected_errors(working, KINDS, columns, held,
+                            {"transit_h": ("chained-linear", {}), "temp_c": ("mean", {}),
+                             "depot": ("mode", {})},
+                            {"transit_h": "nrmse", "temp_c": "nrmse", "depot": "pfc"}, seed=4)
+    assert [name for name, _, _ in spy.seen] == ["chained-linear", "mean", "mode"]
+    for _, pattern, _ in spy.seen:
+        np.testing.assert_array_equal(pattern, held["mcar"] | working[columns].isna().to_numpy())
+    # NRMSE of the mean fill on the held-out cells, recomputed with scikit-learn's
+    # SimpleImputer (mean of the observed cells) and mean_squared_error, divided by the
+    # observed values' standard deviation (ddof=0)
+    j = columns.index("temp_c")
+    train = working["temp_c"].to_numpy(float).copy()
+    cells = held["mcar"][:, j]
+    truth = train[cells]
+    train[cells] = np.nan
+    guess = SimpleImputer(strategy="mean").fit(train.reshape(-1, 1)).statistics_[0]
+    want = math.sqrt(mean_squared_error(truth, np.full(len(truth), guess)))
+    want /= np.nanstd(working["temp_c"].to_numpy(float))
+    assert found["temp_c"] == {"metric": "nrmse", "score": pytest.approx(want), "se": None,
+                               "draws": 1}
+    assert found["depot"]["metric"] == "pfc" and 0 <= found["depot"]["score"] <= 1
+
+
+def test_the_plan_quotes_the_held_out_error_and_fixed_seeds_give_the_same_bytes(
+        bivariate_csv, tmp_path):
+    path, *_ = bivariate_csv
+    options = ScoreOptions(masks=("mcar", "mar"), repeats=2, methods=["mean", "chained-linear"])
+    first, _, _ = score_table(read_table(path), options)
+    second, _, _ = score_table(read_table(path), options)
+    assert first.to_json() == second.to_json()
+    column = first.columns["y"]
+    error = column.expected_error
+    assert error["metric"] == "nrmse" and error["draws"] == 2 and error["se"] is not None
+    assert f"Held-out expected error: nrmse {error['score']:.3g}" in column.reason
+    assert "selection scores over 4 masked draws" in column.reason
+    # Same theorem as above: no fill beats sqrt(RATE + (1 - RATE)(1 - rho^2)) in
+    # expectation; a held-out figure far below it would mean the truth leaked.
+    assert error["score"] > 0.8 * math.sqrt(RATE + (1 - RATE) * (1 - RHO**2))
+    loaded = Plan.load(first.save(tmp_path / "plan.json"))
+    again = loaded.columns["y"].expected_error
+    assert again["metric"] == "nrmse" and again["draws"] == 2
+    assert again["score"] == pytest.approx(error["score"], rel=1e-5)
+    data = json.loads(first.to_json())
+    data["version"] = 2
+    for col in data["columns"].values():
+        del col["expected_error"]
+        col.pop("structural", None)
+    assert Plan.from_dict(data).columns["y"].expected_error is None
+
+
+# --------------------------------------------------------------------- structural blanks
+
+
+@pytest.fixture(scope="module")
+def garage_csv(tmp_path_factory):
+    """Houses: no garage (area 0) leaves the garage's year and finish blank; a few years are
+    also lost at random among houses that have a garage."""
+    rng = np.random.default_rng(11)
+    n = 300
+    built = rng.integers(1900, 2000, n)
+    area = np.where(rng.random(n) < 0.2, 0, rng.integers(200, 900, n))
+    year = np.minimum(built + rng.integers(0, 11, n), 2010).astype(float)
+    finish = rng.choice(["rough", "finished"], n).astype(object)
+    none = area == 0
+    year[none] = np.nan
+    finish[none] = None
+    lost = np.flatnonzero(~none)[rng.choice((~none).sum(), 12, replace=False)]
+    year[lost] = np.nan
+    frame = pd.DataFrame({"built": built, "garage_area": area,
+                          "garage_year": pd.array(year, dtype="Int64"),
+                          "garage_finish": finish})
+    path = tmp_path_factory.mktemp("garage") / "houses.csv"
+    frame.to_csv(path, index=False)
+    return path, frame, none, lost
+
+
+def test_a_structural_number_stands_outside_the_observed_range_and_other_blanks_are_modelled(
+        garage_csv, tmp_path):
+    path, frame, none, lost = garage_csv
+    table = read_table(path)
+    options = ScoreOptions(masks=("mcar",), repeats=2, methods=["median", "chained-linear"])
+    plan, _, _ = score_table(table, options)
+    col = plan.columns["garage_year"]
+    low = float(frame["garage_year"].min())
+    # the experiment's choice is kept; the rule and its stand-in are recorded beside it
+    assert col.method in ("median", "chained-linear")
+    assert col.structural == {"when": "garage_area == 0", "other": "garage_area", "op": "==",
+                              "values": [0], "value": low - 1}
+    assert col.indicator
+    assert col.reason.startswith("structural blank: blank when garage_area == 0")
+    assert f"fill writes {low - 1:g}, one unit (1) below the smallest observed value" in \
+        col.reason
+    assert "12 blank(s) outside the rule" in col.reason
+    labels = plan.columns["garage_finish"]
+    assert labels.structural["value"] == "absent"
+    # Fill through the plan's JSON form.
+    loaded = Plan.load(plan.save(tmp_path / "plan.json"))
+    loaded.columns["garage_year"].method, loaded.columns["garage_year"].params = \
+        "chained-linear", {}
+    out, _ = fill_table(table, loaded, text_output=False)
+    years = out["garage_year"].to_numpy(float)
+    assert (years[none] == low - 1).all()  # the stand-in exactly where the rule holds
+    # the blanks outside the rule get the model's fill: inside the observed range and close
+    # to the house's own year (the year is built + 0..10 by construction)
+    assert (years[lost] >= low).all() and (years[lost] != low - 1).all()
+    assert np.abs(years[lost] - (frame["built"].to_numpy()[lost] + 5)).max() < 15
+    observed = frame["garage_year"].notna().to_numpy()
+    np.testing.assert_array_equal(years[observed],
+                                  frame["garage_year"].to_numpy(float)[observed])
+    assert (out["garage_finish"][none] == "absent").all()
+    assert (out["garage_finish"][~none] != "absent").all()
+    assert out.columns[-1] == "garage_year__was_missing"
+
+
+def test_zero_stands_in_when_it_is_within_or_next_to_the_observed_range():
+    spec = ColumnSpec(kind="numeric", integer=True)
+    assert _structural_value("numeric", pd.Series([160.0, 900.0, 1488.0]), spec)[0] == 0.0
+    assert _structural_value("numeric", pd.Series([-25.0, 5.0]), spec)[0] == 0.0
+    value, words = _structural_value("numeric", pd.Series([1900.0, 1950.0, 2010.0]), spec)
+    assert value == 1899.0 and "outside every observed value" in words
+    tenths = ColumnSpec(kind="numeric", decimals=1)
+    assert _structural_value("numeric", pd.Series([12.5, 14.0]), tenths)[0] == 12.4

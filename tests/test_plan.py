@@ -7,10 +7,13 @@ import math
 import re
 from pathlib import Path
 
+import numpy as np
+import pandas as pd
 import pytest
 
 from imputelab.errors import PlanError
 from imputelab.methods import METHODS
+from imputelab.score.choice import table_choice as _table_choice
 from imputelab.score.plan import PLAN_FORMAT, PLAN_VERSION, ColumnPlan, Plan, choose_method
 
 # The registry's own ranks: mean/median/mode 1 < knn 2 < chained-linear 3 < forest 4 < boosted 5.
@@ -172,10 +175,10 @@ def test_the_json_layout_is_the_documented_one():
     data = json.loads(make_plan().to_json())
     assert list(data) == ["format", "version", "source", "settings", "downstream", "columns"]
     assert data["format"] == PLAN_FORMAT == "imputelab-plan"
-    assert data["version"] == PLAN_VERSION == 2
+    assert data["version"] == PLAN_VERSION == 3
     assert list(data["columns"]["payload_kg"]) == [
         "kind", "missing_fraction", "action", "method", "params", "reason", "scores",
-        "skipped", "cleaning", "indicator", "evidence",
+        "skipped", "cleaning", "indicator", "evidence", "expected_error", "structural",
     ]
 
 
@@ -250,12 +253,12 @@ def plan_data() -> dict:
     return json.loads(make_plan().to_json())
 
 
-@pytest.mark.parametrize("version", [3, 0, "1", None])
+@pytest.mark.parametrize("version", [4, 0, "1", None])
 def test_an_unknown_version_is_refused_and_named(version):
     data = plan_data()
     data["version"] = version
     with pytest.raises(PlanError, match=re.escape(f"is plan version {version!r}; this "
-                                                  "imputelab reads versions 1 and 2")):
+                                                  "imputelab reads versions 1, 2 and 3:")):
         Plan.from_dict(data)
 
 
@@ -340,11 +343,11 @@ def test_a_column_that_is_not_an_object_is_refused(value):
 
 
 def test_load_refuses_a_missing_file_and_bad_json(tmp_path):
-    with pytest.raises(PlanError, match=r"--plan '.*nope\.json': no such file"):
+    with pytest.raises(PlanError, match=r"`plan` '.*nope\.json': no such file"):
         Plan.load(tmp_path / "nope.json")
     bad = tmp_path / "bad.json"
     bad.write_text('{"format": "imputelab-plan",', encoding="utf-8")
-    with pytest.raises(PlanError, match=r"--plan '.*bad\.json' is not valid JSON"):
+    with pytest.raises(PlanError, match=r"`plan` '.*bad\.json' is not valid JSON"):
         Plan.load(bad)
 
 
@@ -397,13 +400,46 @@ def test_a_failed_first_save_leaves_nothing(tmp_path, monkeypatch):
     assert listing(tmp_path) == []
 
 
-def test_a_version_1_plan_still_loads_without_indicator_or_evidence():
+@pytest.mark.parametrize(("version", "absent"), [
+    (1, ("indicator", "evidence", "expected_error", "structural")),
+    (2, ("expected_error", "structural")),
+])
+def test_older_plans_still_load_without_the_newer_fields(version, absent):
     data = plan_data()
-    data["version"] = 1
+    data["version"] = version
     for col in data["columns"].values():
-        del col["indicator"], col["evidence"]
+        for key in absent:
+            del col[key]
     plan = Plan.from_dict(data)
-    assert all(col.indicator is False and col.evidence == {} for col in plan.columns.values())
+    defaults = {"indicator": False, "evidence": {}, "expected_error": None, "structural": None}
+    for col in plan.columns.values():
+        assert all(getattr(col, key) == defaults[key] for key in absent)
+    assert plan.columns["payload_kg"].method == "knn"
+
+
+def test_expected_error_and_structural_rule_round_trip():
+    plan = make_plan()
+    col = plan.columns["payload_kg"]
+    col.expected_error = {"metric": "nrmse", "score": 0.7234567, "se": None, "draws": 3}
+    col.structural = {"when": "depot == 'Hull'", "other": "depot", "op": "==",
+                      "values": ["Hull"], "value": -1.0}
+    back = Plan.from_dict(json.loads(plan.to_json()))
+    assert back.columns["payload_kg"].expected_error == {"metric": "nrmse", "score": 0.723457,
+                                                         "se": None, "draws": 3}
+    assert back.columns["payload_kg"].structural == col.structural
+
+
+@pytest.mark.parametrize(("rule", "message"), [
+    ("x", "must be a JSON object or null"),
+    ({"other": "depot", "op": "==", "values": ["Hull"]}, "lacks value"),
+    ({"other": "depot", "op": "<", "values": [1], "value": 0}, "op\" must be one of"),
+    ({"other": "depot", "op": "in", "values": [], "value": 0}, "values\" must be a list"),
+])
+def test_a_malformed_structural_rule_is_refused(rule, message):
+    data = plan_data()
+    data["columns"]["payload_kg"]["structural"] = rule
+    with pytest.raises(PlanError, match=f"column 'payload_kg': .*{message}"):
+        Plan.from_dict(data)
 
 
 @pytest.mark.parametrize("value", ["yes", 1, None])
@@ -424,3 +460,36 @@ def test_ranking_metric_is_the_primary_metric_or_the_choose_by_score():
     assert Plan(source={}, settings={}, columns={}).ranking_metric("numeric") == "nrmse"
     ranked = Plan(source={}, settings={"choose_by": "distribution"}, columns={})
     assert ranked.ranking_metric("categorical") == "distribution"
+
+
+# ------------------------------------------------------------------- the table's leader
+
+
+def _draw_rows(per_method: dict[str, list[float]]) -> pd.DataFrame:
+    return pd.DataFrame([{"mask": "mcar", "repeat": r, "method": m, "nrmse": v}
+                         for m, values in per_method.items() for r, v in enumerate(values)])
+
+
+def test_a_small_lead_is_written_in_significant_digits_not_rounded_to_zero():
+    leader = [0.500020, 0.500030, 0.500040]
+    other = [0.500010, 0.500034, 0.500022]  # ahead by 8e-06 on average
+    rows = _draw_rows({"blend": leader, "knn": other})
+    usable = {m: (float(np.mean(v)), 0.0) for m, v in
+              {"blend": leader, "knn": other}.items()}
+    chosen, why = _table_choice(rows, "nrmse", usable, False, "blend")
+    # paired SE of the per-draw differences, std(ddof=1) / sqrt(n) (the usual standard
+    # error of a mean), computed with numpy
+    diff = np.array(leader) - np.array(other)
+    se = diff.std(ddof=1) / np.sqrt(len(diff))
+    assert chosen == "blend"
+    assert f"knn is ahead here by {np.mean(diff):.3g}, within two paired standard errors " \
+           f"({se:.2g})" in why
+    assert "by 8e-06" in why and "(0)" not in why
+
+
+def test_a_tie_with_the_leader_is_not_a_lead():
+    rows = _draw_rows({"blend": [0.4, 0.5], "knn": [0.4, 0.5]})
+    chosen, why = _table_choice(rows, "nrmse", {"knn": (0.45, 0.05), "blend": (0.45, 0.05)},
+                                False, "blend")
+    assert chosen == "blend"
+    assert why == "blend has the best mean nrmse over the table's columns and on this one (0.45)"

@@ -17,8 +17,9 @@ from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import OneHotEncoder, StandardScaler
 from threadpoolctl import threadpool_limits
 
-import imputelab.score.target as target_experiment
+import imputelab.score.target_models as target_experiment
 from imputelab.errors import DataError, OptionError
+from imputelab.executors.pool import SerialExecutor
 from imputelab.executors.seeds import derive_seed
 from imputelab.methods import get_method
 from imputelab.methods.simple import MedianFill
@@ -412,3 +413,23 @@ def test_bad_input_is_refused():
     words = pd.Series(["warm"] * 120, name="spoil_score")
     with pytest.raises(DataError, match="target 'spoil_score': not numeric"):
         run(frame, KINDS, list(KINDS), words, "numeric", methods=["mean"])
+
+
+def test_the_grid_runs_through_the_given_executor_with_the_same_result():
+    class Counting(SerialExecutor):
+        def __init__(self):
+            self.tasks: list[int] = []
+
+        def map(self, fn, shared, tasks, progress=None):
+            self.tasks.append(len(tasks))
+            return super().map(fn, shared, tasks, progress)
+
+    frame, target = trip_features(n=150, seed=4)
+    kwargs = dict(methods=["mean", "chained-linear"], n_splits=3, seed=2)
+    plain = run_target_experiment(frame, KINDS, list(KINDS), target, "numeric", **kwargs)
+    executor = Counting()
+    routed = run_target_experiment(frame, KINDS, list(KINDS), target, "numeric",
+                                   executor=executor, **kwargs)
+    # 3 candidates' methods (no fill, mean, chained-linear) x 3 folds, then 3 importance steps
+    assert executor.tasks == [9, 3]
+    assert json.dumps(routed.to_dict()) == json.dumps(plain.to_dict())

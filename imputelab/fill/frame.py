@@ -12,6 +12,7 @@ from threadpoolctl import threadpool_limits
 
 from imputelab.errors import DataError, ImputelabError, PlanError, param
 from imputelab.executors.seeds import derive_seed
+from imputelab.fill.structural import apply_structural
 from imputelab.fill.text import render_text
 from imputelab.frame.encoding import Encoding, with_derived
 from imputelab.frame.setup import working_setup
@@ -272,6 +273,7 @@ def _finish(plan: Plan, encoding: Encoding, targets: list[str], filled: pd.DataF
             typed: pd.DataFrame, report: FillReport) -> pd.DataFrame:
     constants = [n for n in targets if plan.columns[n].method == "constant"]
     result = encoding.decode(filled, typed, unclipped=constants)
+    result = apply_structural(plan, typed, result)  # stand-ins where a rule's condition holds
     actions = {n: c.action for n, c in plan.columns.items() if n in typed.columns}
     for name in targets:
         report.filled[name] = int(typed[name].isna().sum() - result[name].isna().sum())

@@ -13,7 +13,19 @@ Where the weights come from:
   stores them), the method only fits the components and combines them;
 - otherwise ``fit`` hides a share of the observed cells of its own (``selection_rate``), fits
   the components on that copy, chooses the weights on the hidden cells, then fits the
-  components on the whole table. It never sees any cell it is later scored on.
+  components on the whole table. Cells missing in ``X`` (a caller's hidden cells) are never
+  among them, so it never sees a cell it is later scored on.
+
+What the experiment's cross-fitting guarantees, exactly: draw ``r`` is scored with weights
+fitted on the other draws' hidden cells, leaving out every cell ``r`` hides, so no value of
+``r``'s hidden cells is a cell its weights are fitted on. It does *not* keep those values out
+entirely: a draw hides only its own cells, so ``r``'s hidden cells were training data of the
+other draws' component models, and through those models' fills they reach ``r``'s weights
+indirectly. A blend's selection score is therefore not a clean out-of-sample figure (the
+effect is small: three weights fitted on many cells), and it is not what a plan quotes as the
+blend's error. The plan's ``expected_error`` is clean: its held-out cells are missing in every
+selection fit (no component model trains on them), are never a weight-fitting cell, and score
+the blend refitted with the plan's weights (:mod:`imputelab.score.heldout`).
 
 Label columns: the components give labels, not blended probabilities, so a label column takes
 the fill of one component, the one with the fewest wrong labels on the selection cells

@@ -5,6 +5,12 @@ all scored columns at once; every method sees exactly the same hidden cells. A m
 the columns it can in one fit (a chained method is one model of the whole table), and is then
 scored on each column. Seeds are derived from (seed, mask, repeat, method), never from the
 order in which tasks run, so one job or many give the same numbers.
+
+With ``blend`` and all its components among the methods, the blend costs no fit of its own:
+draw ``r`` is scored with weights fitted on the components' fills of the *other* draws, on
+their hidden cells that draw ``r`` does not hide (cross-fitting: no hidden value of draw ``r``
+is a cell the weights are fitted on; see :mod:`imputelab.methods.blend` for the indirect path
+through the other draws' models), and the plan's weights come from every draw.
 """
 
 from __future__ import annotations
@@ -27,7 +33,7 @@ from imputelab.methods import get_method
 from imputelab.methods.blend import COMPONENTS, fit_blend
 from imputelab.metrics.scores import correlation_shift, score_cells, variance_ratio
 
-__all__ = ["ExperimentResult", "draw_hidden", "run_experiment"]
+__all__ = ["ExperimentResult", "column_scales", "draw_hidden", "run_experiment"]
 
 
 @dataclass
@@ -57,6 +63,9 @@ class ExperimentResult:
         method's values in the cells that were empty after masking, in row order.
     draws : list
         ``(mask, repeat, hidden)`` of every draw, ``hidden`` a boolean rows x columns array.
+    held_out : dict
+        ``{mask: cells}``, the held-out cells given to :func:`run_experiment` (boolean rows x
+        columns): missing in every fit of that mask's draws and hidden by none of them.
     """
 
     scores: pd.DataFrame
@@ -68,6 +77,7 @@ class ExperimentResult:
     task_seconds: dict[tuple[str, int, str], float] = field(default_factory=dict)
     fills: dict[tuple[str, int], dict[str, dict[str, np.ndarray]]] = field(default_factory=dict)
     draws: list[tuple[str, int, np.ndarray]] = field(default_factory=list)
+    held_out: dict[str, np.ndarray] = field(default_factory=dict)
 
 
 def _score_task(
@@ -81,10 +91,12 @@ def _score_task(
     targets: Sequence[str],
     seed: int,
     keep: bool = False,
+    blank: np.ndarray | None = None,
 ) -> tuple[list[dict[str, Any]], float, str | None, dict[str, np.ndarray] | None]:
+    """Fit one method with ``blank`` (default: ``hidden``) missing; score it on ``hidden``."""
     with threadpool_limits(limits=1):
         start = time.perf_counter()
-        masked = _masked(working, hidden, columns)
+        masked = _masked(working, hidden if blank is None else blank, columns)
         try:
             estimator = get_method(method, **params)
             if "random_state" in estimator.get_params():
@@ -159,13 +171,23 @@ class _Shared:
     columns: Sequence[str]
     scales: Mapping[str, float]
     draws: Mapping[tuple[str, int], np.ndarray]  # hidden cells per (mask, repeat)
+    held_out: Mapping[str, np.ndarray] = field(default_factory=dict)  # per mask
+
+
+def _blank(held_out: Mapping[str, np.ndarray], mask_name: str, hidden: np.ndarray
+           ) -> np.ndarray:
+    """Cells missing in a draw's fit: its hidden cells and its mask's held-out cells."""
+    held = held_out.get(mask_name)
+    return hidden if held is None else hidden | held
 
 
 def _grid_task(shared: _Shared, mask_name: str, repeat: int, method: str,
                params: Mapping[str, Any], targets: Sequence[str], seed: int, keep: bool
                ) -> tuple[list[dict[str, Any]], float, str | None, dict[str, np.ndarray] | None]:
-    return _score_task(shared.working, shared.kinds, shared.draws[mask_name, repeat],
-                       shared.columns, shared.scales, method, params, targets, seed, keep)
+    hidden = shared.draws[mask_name, repeat]
+    return _score_task(shared.working, shared.kinds, hidden, shared.columns, shared.scales,
+                       method, params, targets, seed, keep,
+                       _blank(shared.held_out, mask_name, hidden))
 
 
 def _distribution_checks(working: pd.DataFrame, filled: pd.DataFrame, name: str,
@@ -198,6 +220,7 @@ def run_experiment(
     progress: Callable[[int, int], None] | None = None,
     keep_fills: bool = False,
     executor: Executor | None = None,
+    held_out: Mapping[str, np.ndarray] | None = None,
 ) -> ExperimentResult:
     """Score every method on every column under every mask.
 
@@ -222,28 +245,68 @@ def run_experiment(
     dtypes : mapping, optional
         The table's dtypes, for methods whose applicability depends on them.
     n_jobs : int
-        Parallel tasks (joblib); BLAS and LightGBM run one thread per task.
+        Parallel tasks (joblib) when no ``executor`` is given; one BLAS thread per task.
     progress : callable, optional
         Called as ``progress(done, total)`` after each task.
     keep_fills : bool
         Keep every method's fills (:attr:`ExperimentResult.fills`).
     executor : Executor, optional
-        Where the tasks run (:mod:`imputelab.executors.pool`), e.g. a Dask cluster; by default
-        ``n_jobs`` local processes. The scores do not depend on it.
+        Where the tasks run (:mod:`imputelab.executors.pool`); the scores do not depend on it.
+    held_out : mapping, optional
+        ``{mask: cells}``, boolean rows x ``columns`` arrays (see
+        :func:`imputelab.score.heldout.draw_held_out`). A mask's held-out cells are missing in
+        every fit of its draws (never training data) and none of its draws hides them, so
+        they can later score the chosen method on cells no choice has seen.
 
     Returns
     -------
     ExperimentResult
-
-    Notes
-    -----
-    With ``blend`` and all its components among the methods, the blend costs no fit of its
-    own: draw ``r`` is scored with weights fitted on the components' fills of the *other*
-    draws, on their hidden cells that draw ``r`` does not hide (cross-fitting: no hidden
-    value of draw ``r`` takes part), and the plan's weights come from every draw.
     """
     columns = list(columns)
-    dtypes = dtypes or {}
+    held = dict(held_out or {})
+    targets, skipped = _method_targets(working, kinds, columns, methods, dtypes or {})
+    draws = draw_hidden(working, columns, masks, rate, repeats, seed, held_out=held)
+    # What every task reads goes out once (scattered to a cluster's workers), not per task.
+    shared = _Shared(working, kinds, columns, column_scales(working, columns),
+                     {(mask_name, repeat): hidden for mask_name, repeat, hidden in draws}, held)
+    crossfit = "blend" in methods and all(m in methods for m in COMPONENTS)
+    tasks = _tasks(draws, methods, targets, seed, keep_fills, crossfit)
+    executor = executor if executor is not None else JoblibExecutor(n_jobs)
+    result = _collect(tasks, executor.map(_grid_task, shared, tasks, progress), methods)
+    result.skipped, result.draws, result.held_out = skipped, draws, held
+    result.hidden = {mask_name: {c: int(hidden[:, j].sum()) for j, c in enumerate(columns)}
+                     for mask_name, repeat, hidden in draws if repeat == 0}
+    if crossfit and targets["blend"]:
+        _add_blend(result, shared, targets["blend"], keep_fills)
+    result.scores = _tidy(result.scores)
+    if not keep_fills:
+        result.fills = {}
+    return result
+
+
+def _tasks(draws: Sequence[tuple[str, int, np.ndarray]], methods: Mapping[str, Any],
+           targets: Mapping[str, list[str]], seed: int, keep_fills: bool, crossfit: bool
+           ) -> list[tuple]:
+    """One task per (draw, method); a cross-fitted blend needs no task of its own."""
+    keep = set(methods) if keep_fills else set(COMPONENTS) if crossfit else set()
+    return [(mask_name, repeat, method, methods[method], targets[method],
+             derive_seed(seed, mask_name, repeat, method), method in keep)
+            for mask_name, repeat, _ in draws for method in methods
+            if targets[method] and not (crossfit and method == "blend")]
+
+
+def _tidy(records: list[dict[str, Any]]) -> pd.DataFrame:
+    scores = pd.DataFrame.from_records(records)
+    if len(scores):
+        front = ["column", "method", "mask", "repeat", "n_hidden"]
+        scores = scores[front + [c for c in scores.columns if c not in front]]
+    return scores
+
+
+def _method_targets(working: pd.DataFrame, kinds: Mapping[str, str], columns: Sequence[str],
+                    methods: Mapping[str, Any], dtypes: Mapping[str, Any]
+                    ) -> tuple[dict[str, list[str]], dict[str, dict[str, str]]]:
+    """The columns each method can fill, and why it cannot fill the others."""
     skipped: dict[str, dict[str, str]] = {}
     targets: dict[str, list[str]] = {}
     for method in methods:
@@ -257,86 +320,83 @@ def run_experiment(
                 skipped.setdefault(name, {})[method] = reason
             else:
                 targets[method].append(name)
+    return targets, skipped
+
+
+def column_scales(working: pd.DataFrame, columns: Sequence[str]) -> dict[str, float]:
+    """Standard deviation (``ddof=0``) of each numeric column's observed values."""
     scales = {}
     for name in columns:
         if not is_categorical(working[name]):
             values = working[name].to_numpy(float)
             scales[name] = float(np.nanstd(values)) if np.isfinite(values).any() else np.nan
-    draws = draw_hidden(working, columns, masks, rate, repeats, seed)
-    hidden_counts = {mask_name: {c: int(hidden[:, j].sum()) for j, c in enumerate(columns)}
-                     for mask_name, repeat, hidden in draws if repeat == 0}
-    crossfit = "blend" in methods and all(m in methods for m in COMPONENTS)
-    keep = set(methods) if keep_fills else set(COMPONENTS) if crossfit else set()
-    tasks = [
-        (mask_name, repeat, method, methods[method], targets[method],
-         derive_seed(seed, mask_name, repeat, method), method in keep)
-        for mask_name, repeat, _ in draws
-        for method in methods
-        if targets[method] and not (crossfit and method == "blend")
-    ]
-    # What every task reads goes out once (scattered to a cluster's workers), not per task.
-    shared = _Shared(working, kinds, columns, scales,
-                     {(mask_name, repeat): hidden for mask_name, repeat, hidden in draws})
-    if executor is None:
-        executor = JoblibExecutor(n_jobs)
-    results = executor.map(_grid_task, shared, tasks, progress)
-    records: list[dict[str, Any]] = []
-    seconds = dict.fromkeys(methods, 0.0)
-    task_seconds: dict[tuple[str, int, str], float] = {}
-    fills: dict[tuple[str, int], dict[str, dict[str, np.ndarray]]] = {}
-    failures = []
+    return scales
+
+
+def _collect(tasks: Sequence[tuple], results: Any, methods: Mapping[str, Any]
+             ) -> ExperimentResult:
+    """Gather the grid's results in task order; ``scores`` holds the records as a list."""
+    out = ExperimentResult(scores=[], seconds=dict.fromkeys(methods, 0.0))  # type: ignore[arg-type]
     for (mask_name, repeat, method, *_), (rows, spent, error, kept) in zip(tasks, results,
                                                                             strict=True):
-        seconds[method] += spent
-        task_seconds[(mask_name, repeat, method)] = spent
+        out.seconds[method] += spent
+        out.task_seconds[(mask_name, repeat, method)] = spent
         if error:
-            failures.append({"method": method, "mask": mask_name, "repeat": repeat,
-                             "error": error})
+            out.failures.append({"method": method, "mask": mask_name, "repeat": repeat,
+                                 "error": error})
         if kept is not None:
-            fills.setdefault((mask_name, repeat), {})[method] = kept
+            out.fills.setdefault((mask_name, repeat), {})[method] = kept
         for row in rows:
             row.update(mask=mask_name, repeat=repeat)
-            records.append(row)
-    blend: dict[str, Any] = {}
-    if crossfit and targets["blend"]:
-        blend = _crossfit_blend(working, columns, scales, draws, fills, targets["blend"])
-        for mask_name, repeat, hidden in draws:
-            entry = blend["draws"].get(f"{mask_name}/{repeat}")
-            if entry is None:
-                continue
-            filled = _blended(working, columns, hidden, fills[(mask_name, repeat)],
-                              targets["blend"], entry)
-            for row in _score_filled(working, filled, hidden, columns, scales, "blend",
-                                     targets["blend"]):
-                row.update(mask=mask_name, repeat=repeat)
-                records.append(row)
-            spent = sum(task_seconds[(mask_name, repeat, m)] for m in COMPONENTS)
-            seconds["blend"] += spent
-            task_seconds[(mask_name, repeat, "blend")] = spent
-            if keep_fills:
-                fills[(mask_name, repeat)]["blend"] = {
-                    n: _values(filled[n])[_masked(working, hidden, columns)[n].isna()
-                                          .to_numpy()] for n in targets["blend"]}
-    scores = pd.DataFrame.from_records(records)
-    if len(scores):
-        front = ["column", "method", "mask", "repeat", "n_hidden"]
-        scores = scores[front + [c for c in scores.columns if c not in front]]
-    if not keep_fills:
-        fills = {}
-    return ExperimentResult(scores=scores, seconds=seconds, skipped=skipped,
-                            failures=failures, hidden=hidden_counts, blend=blend,
-                            task_seconds=task_seconds, fills=fills, draws=draws)
+            out.scores.append(row)
+    return out
+
+
+def _add_blend(result: ExperimentResult, shared: _Shared, targets: Sequence[str],
+               keep_fills: bool) -> None:
+    """Score the cross-fitted blend on every draw from its components' kept fills."""
+    working, columns = shared.working, list(shared.columns)
+    result.blend = _crossfit_blend(working, columns, shared.scales, result.draws,
+                                   result.fills, targets, shared.held_out)
+    for mask_name, repeat, hidden in result.draws:
+        entry = result.blend["draws"].get(f"{mask_name}/{repeat}")
+        if entry is None:
+            continue
+        blank = _blank(shared.held_out, mask_name, hidden)
+        filled = _blended(working, columns, blank, result.fills[(mask_name, repeat)],
+                          targets, entry)
+        for row in _score_filled(working, filled, hidden, columns, shared.scales, "blend",
+                                 targets):
+            row.update(mask=mask_name, repeat=repeat)
+            result.scores.append(row)
+        spent = sum(result.task_seconds[(mask_name, repeat, m)] for m in COMPONENTS)
+        result.seconds["blend"] += spent
+        result.task_seconds[(mask_name, repeat, "blend")] = spent
+        if keep_fills:
+            empty = _masked(working, blank, columns)
+            result.fills[(mask_name, repeat)]["blend"] = {
+                n: _values(filled[n])[empty[n].isna().to_numpy()] for n in targets}
 
 
 def draw_hidden(working: pd.DataFrame, columns: Sequence[str], masks: Sequence[str],
-                rate: float, repeats: int, seed: int) -> list[tuple[str, int, np.ndarray]]:
-    """The hidden cells of every (mask, repeat) draw, seeded by ``(seed, mask, repeat)``."""
+                rate: float, repeats: int, seed: int,
+                held_out: Mapping[str, np.ndarray] | None = None
+                ) -> list[tuple[str, int, np.ndarray]]:
+    """The hidden cells of every (mask, repeat) draw, seeded by ``(seed, mask, repeat)``.
+
+    Each mask draws on the whole frame, as it would without held-out cells, and then gives
+    up the cells of its ``held_out`` array: a draw never hides a held-out cell.
+    """
     draws = []
+    held_out = held_out or {}
     for mask_name in masks:
         mask = get_mask(mask_name)
         for repeat in range(repeats):
             rng = np.random.default_rng(derive_seed(seed, mask_name, repeat))
-            draws.append((mask_name, repeat, mask.sample(working, list(columns), rate, rng)))
+            hidden = mask.sample(working, list(columns), rate, rng)
+            if mask_name in held_out:
+                hidden = hidden & ~held_out[mask_name]
+            draws.append((mask_name, repeat, hidden))
     return draws
 
 
@@ -348,7 +408,8 @@ def _holes(working: pd.DataFrame, hidden: np.ndarray, j: int, name: str) -> np.n
 def _crossfit_blend(working: pd.DataFrame, columns: Sequence[str],
                     scales: Mapping[str, float], draws: list[tuple[str, int, np.ndarray]],
                     fills: Mapping[tuple[str, int], Mapping[str, Mapping[str, np.ndarray]]],
-                    targets: Sequence[str]) -> dict[str, Any]:
+                    targets: Sequence[str],
+                    held_out: Mapping[str, np.ndarray] | None = None) -> dict[str, Any]:
     """Blend weights for every draw from the other draws, and from all draws for the plan."""
     complete = [d for d in draws if all(m in fills.get((d[0], d[1]), {}) for m in COMPONENTS)]
     index = {name: j for j, name in enumerate(columns)}
@@ -359,8 +420,9 @@ def _crossfit_blend(working: pd.DataFrame, columns: Sequence[str],
         for mask_name, repeat, hidden in used:
             for name in targets:
                 j = index[name]
-                holes = np.flatnonzero(_holes(working, hidden, j, name))
-                pick = hidden[holes, j]
+                holes = np.flatnonzero(_holes(working, _blank(held_out or {}, mask_name,
+                                                              hidden), j, name))
+                pick = hidden[holes, j]  # the draw's hidden cells, never held-out ones
                 if exclude is not None:
                     pick &= ~exclude[holes, j]
                 truth[name].append(_values(working[name])[holes[pick]])
@@ -383,15 +445,15 @@ def _crossfit_blend(working: pd.DataFrame, columns: Sequence[str],
     return {**overall, "draws": per_draw}
 
 
-def _blended(working: pd.DataFrame, columns: Sequence[str], hidden: np.ndarray,
+def _blended(working: pd.DataFrame, columns: Sequence[str], blank: np.ndarray,
              fills: Mapping[str, Mapping[str, np.ndarray]], targets: Sequence[str],
              entry: Mapping[str, Any]) -> pd.DataFrame:
-    """The blend's filled frame of one draw, from its components' fills."""
-    filled = _masked(working, hidden, columns)
+    """The blend's filled frame of one draw (``blank``: its fit's empty cells)."""
+    filled = _masked(working, blank, columns)
     weights, labels = entry["weights"], entry["label_method"]
     for name in targets:
         j = columns.index(name)
-        holes = np.flatnonzero(_holes(working, hidden, j, name))
+        holes = np.flatnonzero(_holes(working, blank, j, name))
         column = filled[name].copy()
         if is_categorical(working[name]):
             column.iloc[holes] = fills[labels or max(weights, key=weights.get)][name]

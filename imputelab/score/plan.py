@@ -2,13 +2,17 @@
 
 A plan is plain data written as versioned JSON that a person can read and edit::
 
-    {"format": "imputelab-plan", "version": 1,
+    {"format": "imputelab-plan", "version": 3,
      "source": {"file", "rows", "columns", "fingerprint", ...},
      "settings": {...},
      "downstream": {...},  # with a target: every fill scored by models of the target
      "columns": {NAME: {"kind", "missing_fraction", "action", "method", "params",
                         "reason", "scores": {METHOD: {METRIC: VALUE}}, "cleaning": {...},
-                        "indicator": false, "evidence": {...}}}}
+                        "indicator": false, "evidence": {...},
+                        "expected_error": {"metric", "score", "se", "draws"} | null}}}
+
+``scores`` are *selection* scores: the draws that chose the method. ``expected_error`` is
+the chosen method's score on held-out cells no choice saw (see :mod:`imputelab.score.heldout`).
 
 ``action`` is ``impute``, ``drop`` (removed from the output) or ``exclude`` (passed through
 unchanged: identifiers, free text, the target). A user may change ``method``, ``params``,
@@ -24,7 +28,7 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
 
-from imputelab.errors import PlanError
+from imputelab.errors import PlanError, param
 from imputelab.io.columns import KINDS
 from imputelab.io.tables import atomic_path
 from imputelab.metrics.scores import PRIMARY
@@ -40,9 +44,10 @@ __all__ = [
 ]
 
 PLAN_FORMAT = "imputelab-plan"
-PLAN_VERSION = 2
-#: Versions this imputelab reads: version 1 lacks ``indicator`` and ``evidence``.
-READABLE_VERSIONS = (1, 2)
+PLAN_VERSION = 3
+#: Versions this imputelab reads: version 1 lacks ``indicator`` and ``evidence``, version 2
+#: lacks ``expected_error`` and ``structural`` (both then None).
+READABLE_VERSIONS = (1, 2, 3)
 ACTIONS = ("impute", "drop", "exclude")
 
 
@@ -75,8 +80,10 @@ class ColumnPlan:
     reason : str
         Why, in words.
     scores : dict
-        ``{METHOD: {METRIC: VALUE}}``: mean over every mask and repeat, the primary metric's
-        standard error (``METRIC_se``) and its mean under each mask (``METRIC@MASK``).
+        Selection scores, ``{METHOD: {METRIC: VALUE}}``: mean over every mask and repeat of
+        the draws that chose the method, the primary metric's standard error (``METRIC_se``)
+        and its mean under each mask (``METRIC@MASK``). They choose; they are not the
+        expected error of the choice (the best of several noisy means flatters it).
     skipped : dict
         Methods that could not fill the column, with the reason.
     cleaning : dict
@@ -100,6 +107,8 @@ class ColumnPlan:
     cleaning: dict[str, Any] = field(default_factory=dict)
     indicator: bool = False
     evidence: dict[str, Any] = field(default_factory=dict)
+    expected_error: dict[str, Any] | None = None
+    structural: dict[str, Any] | None = None
 
 
 @dataclass
@@ -116,7 +125,7 @@ class Plan:
     def ranking_metric(self, kind: str) -> str:
         """The score the choice ranked a column of ``kind`` by.
 
-        The primary metric of its family (``settings.metrics``), or the ``--choose-by``
+        The primary metric of its family (``settings.metrics``), or the ``choose_by``
         score (``distribution``, ``balanced``) when the plan was made with one.
         """
         choose_by = self.settings.get("choose_by", "accuracy")
@@ -153,7 +162,8 @@ class Plan:
         if not isinstance(data, Mapping) or data.get("format") != PLAN_FORMAT:
             raise PlanError(f"{origin} is not an imputelab plan (no \"format\": \"{PLAN_FORMAT}\")")
         if data.get("version") not in READABLE_VERSIONS:
-            readable = " and ".join(str(v) for v in READABLE_VERSIONS)
+            readable = (", ".join(str(v) for v in READABLE_VERSIONS[:-1])
+                        + f" and {READABLE_VERSIONS[-1]}")
             raise PlanError(
                 f"{origin} is plan version {data.get('version')!r}; this imputelab reads "
                 f"versions {readable}: run score again to make a new plan"
@@ -179,6 +189,7 @@ class Plan:
             if not isinstance(col.indicator, bool):
                 raise PlanError(f"{origin}: column '{name}': \"indicator\" must be true or "
                                 "false")
+            _check_structural(col.structural, f"{origin}: column '{name}'")
             if col.action == "impute" and not col.method:
                 raise PlanError(f"{origin}: column '{name}' is to be imputed but has no method")
             columns[name] = col
@@ -186,10 +197,10 @@ class Plan:
                    columns=columns, downstream=dict(data.get("downstream") or {}))
 
     @classmethod
-    def load(cls, path: str | Path, *, option: str = "--plan") -> Plan:
+    def load(cls, path: str | Path, *, option: str | None = None) -> Plan:
         """Read a plan file."""
         path = Path(path)
-        origin = f"{option} '{path}'"
+        origin = f"{option or param('plan')} '{path}'"
         if not path.is_file():
             raise PlanError(f"{origin}: no such file; make one with 'imputelab score'")
         try:
@@ -197,6 +208,26 @@ class Plan:
         except (UnicodeDecodeError, json.JSONDecodeError) as exc:
             raise PlanError(f"{origin} is not valid JSON: {exc}") from None
         return cls.from_dict(data, origin=origin)
+
+
+STRUCTURAL_OPS = ("==", "in", "is blank")
+
+
+def _check_structural(rule: Any, where: str) -> None:
+    """A plan's structural rule: an object with a known condition and a stand-in value."""
+    if rule is None:
+        return
+    if not isinstance(rule, Mapping):
+        raise PlanError(f"{where}: \"structural\" must be a JSON object or null")
+    missing = [k for k in ("other", "op", "values", "value") if k not in rule]
+    if missing:
+        raise PlanError(f"{where}: \"structural\" lacks {', '.join(missing)}")
+    if rule["op"] not in STRUCTURAL_OPS:
+        raise PlanError(f"{where}: structural \"op\" must be one of "
+                        f"{', '.join(STRUCTURAL_OPS)}, got {rule['op']!r}")
+    if not isinstance(rule["values"], list) or (rule["op"] != "is blank" and not rule["values"]):
+        raise PlanError(f"{where}: structural \"values\" must be a list of the condition's "
+                        "values")
 
 
 def choose_method(

@@ -31,34 +31,35 @@ the no-fill task), so the result does not depend on ``n_jobs``.
 
 from __future__ import annotations
 
-import math
-import time
-import traceback
-import warnings
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
-import lightgbm as lgb
 import numpy as np
 import pandas as pd
-from joblib import Parallel, delayed
-from sklearn.compose import ColumnTransformer
-from sklearn.exceptions import ConvergenceWarning
-from sklearn.impute import SimpleImputer
-from sklearn.inspection import permutation_importance
-from sklearn.linear_model import LogisticRegression, Ridge
-from sklearn.metrics import accuracy_score, r2_score, roc_auc_score
 from sklearn.model_selection import KFold, StratifiedKFold
-from sklearn.pipeline import Pipeline
-from sklearn.preprocessing import OneHotEncoder, StandardScaler
-from threadpoolctl import threadpool_limits
 
 from imputelab.errors import DataError, OptionError
+from imputelab.executors.pool import Executor, JoblibExecutor
 from imputelab.executors.seeds import derive_seed
-from imputelab.frame.encoding import is_categorical, with_derived
-from imputelab.io.columns import INDICATOR_SUFFIX
+from imputelab.frame.encoding import is_categorical
 from imputelab.methods import get_method
+from imputelab.score.experiment import _method_targets
+from imputelab.score.target_models import (
+    LGBM_PARAMS,
+    MODELS,
+    NO_FILL,
+    TargetShared,
+    importance_task,
+    target_task,
+)
+from imputelab.score.target_summary import (
+    INDICATOR_RULE,
+    indicator_source,
+    indicator_summary,
+    plain,
+    summarise,
+)
 
 __all__ = [
     "LGBM_PARAMS",
@@ -69,25 +70,11 @@ __all__ = [
     "run_target_experiment",
 ]
 
-NO_FILL = "no fill"
-MODELS = ("lightgbm", "linear")
-# Modest, deterministic boosting: enough trees to be a fair judge of a fill, cheap on one core.
-LGBM_PARAMS: dict[str, Any] = dict(
-    n_estimators=200, num_leaves=31, learning_rate=0.05, n_jobs=1, deterministic=True,
-    force_row_wise=True, verbose=-1,
-)
-RIDGE_ALPHA = 1.0
-LOGISTIC_MAX_ITER = 1000
-IMPORTANCE_REPEATS = 5
 # A row cap keeps the cost bounded: on 2 cores the 5,000-row demo (11 features, all 8
 # methods, 5 folds) takes about 50 s; the cost grows in step with the rows.
 MAX_ROWS = 5000
 MIN_FOLD_ROWS = 10  # held-out folds smaller than this give scores too noisy to compare
 TARGET_KINDS = ("numeric", "binary", "categorical")
-NOT_APPLICABLE = "the linear model cannot take blanks"
-INDICATOR_RULE = ("recommend an indicator when the mean permutation importance over the "
-                  "held-out folds is above 0 and above 2 standard errors (common practice, "
-                  "no source)")
 
 
 @dataclass(frozen=True, eq=False)
@@ -170,221 +157,18 @@ class TargetResult:
             "rows_used": self.rows_used,
             "rows_missing_target": self.rows_missing_target,
             "rows_left_out": self.rows_left_out,
-            "classes": None if self.classes is None else [_plain(c) for c in self.classes],
-            "candidates": _plain(self.candidates),
+            "classes": None if self.classes is None else [plain(c) for c in self.classes],
+            "candidates": plain(self.candidates),
             "best": dict(self.best),
             "no_fill_best": self.no_fill_best,
             "no_fill_within_one_se": self.no_fill_within_one_se,
-            "indicators": _plain(self.indicators),
+            "indicators": plain(self.indicators),
             "indicator_candidate": self.indicator_candidate,
             "indicator_rule": INDICATOR_RULE,
-            "skipped": _plain(self.skipped),
+            "skipped": plain(self.skipped),
             "fallbacks": dict(self.fallbacks),
-            "failures": _plain(self.failures),
+            "failures": plain(self.failures),
         }
-
-
-def _plain(value: Any) -> Any:
-    if isinstance(value, Mapping):
-        return {str(k): _plain(v) for k, v in value.items()}
-    if isinstance(value, list | tuple):
-        return [_plain(v) for v in value]
-    if isinstance(value, bool | np.bool_):
-        return bool(value)
-    if isinstance(value, int | np.integer):
-        return int(value)
-    if isinstance(value, float | np.floating):
-        return float(value) if math.isfinite(value) else None
-    return value
-
-
-# ------------------------------------------------------------------------------ one task
-
-
-class _FixedRest:
-    """A fitted model seen through some of its columns, the others held fixed.
-
-    :func:`sklearn.inspection.permutation_importance` permutes every column it is given; giving
-    it the indicator columns alone keeps the cost to what is asked.
-    """
-
-    def __init__(self, model: Any, rest: pd.DataFrame, order: list[str]):
-        self.model, self.rest, self.order = model, rest, order
-
-    def fit(self, X: Any, y: Any = None) -> _FixedRest:  # permutation_importance asks for one
-        return self
-
-    def full(self, X: pd.DataFrame) -> pd.DataFrame:
-        out = self.rest.copy()
-        for name in X.columns:
-            out[name] = X[name].to_numpy()
-        return out[self.order]
-
-
-def _response(model: Any, X: pd.DataFrame, metric: str) -> np.ndarray:
-    if metric == "roc_auc":
-        return model.predict_proba(X)[:, 1]
-    return model.predict(X)
-
-
-def _score(metric: str, y: np.ndarray, response: np.ndarray) -> float:
-    if metric == "r2":
-        return float(r2_score(y, response))
-    if metric == "roc_auc":
-        return float(roc_auc_score(y, response))
-    return float(accuracy_score(y, response))
-
-
-def _lightgbm(task: str, seed: int) -> Any:
-    if task == "regression":
-        return lgb.LGBMRegressor(**LGBM_PARAMS, random_state=seed)
-    return lgb.LGBMClassifier(**LGBM_PARAMS, random_state=seed)
-
-
-def _linear(task: str, X: pd.DataFrame) -> Pipeline:
-    labels = [c for c in X.columns if is_categorical(X[c])]
-    numbers = [c for c in X.columns if c not in labels]
-    # The imputer is a safety net only: every candidate fills its columns before this, so it
-    # acts on nothing but a column with no observed value in the training rows.
-    prepare = ColumnTransformer([
-        ("numbers", Pipeline([("rest", SimpleImputer(strategy="mean")),
-                              ("scale", StandardScaler())]), numbers),
-        ("labels", OneHotEncoder(handle_unknown="ignore", sparse_output=False), labels),
-    ])
-    model = (Ridge(alpha=RIDGE_ALPHA) if task == "regression"
-             else LogisticRegression(max_iter=LOGISTIC_MAX_ITER))
-    return Pipeline([("prepare", prepare), ("model", model)])
-
-
-def _align_categories(train: pd.DataFrame, test: pd.DataFrame) -> tuple[pd.DataFrame,
-                                                                        pd.DataFrame]:
-    """Give both frames' label columns the same categories (a fill may add a label to one)."""
-    train, test = train.copy(), test.copy()
-    for name in train.columns:
-        if is_categorical(train[name]) and is_categorical(test[name]):
-            first, second = list(train[name].cat.categories), list(test[name].cat.categories)
-            if first != second:
-                union = first + [c for c in second if c not in first]
-                train[name] = train[name].cat.set_categories(union)
-                test[name] = test[name].cat.set_categories(union)
-    return train, test
-
-
-def _fill(train: pd.DataFrame, test: pd.DataFrame, kinds: Mapping[str, str], method: str,
-          params: Mapping[str, Any], targets: Sequence[str], fallbacks: Mapping[str, str],
-          seed: int) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """Fit ``method`` (and the fallbacks) on the training rows only; fill both parts."""
-    columns = list(train.columns)
-    train_x, test_x = with_derived(train, kinds), with_derived(test, kinds)
-    steps: list[tuple[str, Mapping[str, Any], list[str]]] = []
-    if targets:
-        steps.append((method, params, list(targets)))
-    for name in ("median", "mode"):
-        cols = [c for c, f in fallbacks.items() if f == name]
-        if cols:
-            steps.append((name, {}, cols))
-    for name, step_params, cols in steps:
-        estimator = get_method(name, **step_params)
-        if "random_state" in estimator.get_params():
-            estimator.set_params(random_state=seed)
-        # fit_transform on the training rows: a chain's own last state, no second pass
-        train_x = estimator.fit_transform(train_x, cols)
-        test_x = estimator.transform(test_x)
-    return train_x[columns], test_x[columns]
-
-
-def _features(filled: pd.DataFrame, raw: pd.DataFrame, kinds: Mapping[str, str],
-              indicators: Sequence[str]) -> pd.DataFrame:
-    # Derived datetime features are made again from the filled timestamps, so they agree.
-    out = with_derived(filled, kinds)
-    if indicators:
-        flags = {f"{n}{INDICATOR_SUFFIX}": raw[n].isna().to_numpy(float) for n in indicators}
-        out = pd.concat([out, pd.DataFrame(flags, index=out.index)], axis=1)
-    return out
-
-
-def _target_task(
-    working: pd.DataFrame,
-    kinds: Mapping[str, str],
-    y: np.ndarray,
-    train: np.ndarray,
-    test: np.ndarray,
-    task: str,
-    metric: str,
-    method: str | None,
-    params: Mapping[str, Any],
-    targets: Sequence[str],
-    fallbacks: Mapping[str, str],
-    fill_columns: Sequence[str],
-    seed: int,
-) -> tuple[list[dict[str, Any]], tuple | None, float, str | None]:
-    """Fill (unless ``method`` is None), fit both models, score them on the held-out rows.
-
-    Returns the score records, the fitted LightGBM model of ``M + indicators`` with its
-    held-out features (for the indicator importances, computed later for the best candidate
-    only), the seconds spent, and the error message of a failure.
-    """
-    start = time.perf_counter()
-    records: list[dict[str, Any]] = []
-    probe = None
-    with threadpool_limits(limits=1), warnings.catch_warnings():
-        warnings.simplefilter("ignore", ConvergenceWarning)
-        try:
-            raw_train, raw_test = working.iloc[train], working.iloc[test]
-            y_train, y_test = y[train], y[test]
-            if method is None:
-                variants = [(NO_FILL, None, False, raw_train, raw_test, ("lightgbm",))]
-            else:
-                filled_train, filled_test = _fill(raw_train, raw_test, kinds, method, params,
-                                                  targets, fallbacks, seed)
-                variants = [
-                    (method, method, False, filled_train, filled_test, MODELS),
-                    (f"{method} + indicators", method, True, filled_train, filled_test, MODELS),
-                ]
-            for candidate, name, flagged, part_train, part_test, models in variants:
-                flags = ([c for c in fill_columns if raw_train[c].isna().any()] if flagged
-                         else [])
-                X_train, X_test = _align_categories(
-                    _features(part_train, raw_train, kinds, flags),
-                    _features(part_test, raw_test, kinds, flags))
-                for model_name in models:
-                    model = (_lightgbm(task, seed) if model_name == "lightgbm"
-                             else _linear(task, X_train))
-                    model.fit(X_train, y_train)
-                    value = _score(metric, y_test, _response(model, X_test, metric))
-                    records.append({"candidate": candidate, "method": name,
-                                    "indicators": flagged, "model": model_name,
-                                    "score": value})
-                    if model_name == "lightgbm" and flags:
-                        probe = (model, X_test, y_test, flags)
-        except Exception as exc:  # one task's failure is recorded; the run goes on
-            last = traceback.format_exception_only(type(exc), exc)[-1].strip()
-            return [], None, time.perf_counter() - start, last
-    return records, probe, time.perf_counter() - start, None
-
-
-def _importance_task(probe: tuple, metric: str, seed: int) -> dict[str, float]:
-    """Permutation importance of each indicator column on one held-out fold."""
-    model, X_test, y_test, flagged = probe
-    names = [f"{n}{INDICATOR_SUFFIX}" for n in flagged]
-    view = _FixedRest(model, X_test.drop(columns=names), list(X_test.columns))
-
-    def scorer(estimator: _FixedRest, X: pd.DataFrame, y: np.ndarray) -> float:
-        return _score(metric, y, _response(estimator.model, estimator.full(X), metric))
-
-    with threadpool_limits(limits=1):
-        found = permutation_importance(view, X_test[names], y_test, scoring=scorer,
-                                       n_repeats=IMPORTANCE_REPEATS, random_state=seed)
-    return {column: float(v) for column, v in zip(flagged, found.importances_mean, strict=True)}
-
-
-def _run(jobs: list, n_jobs: int):
-    if n_jobs == 1:
-        return (job[0](*job[1], **job[2]) for job in jobs)
-    return Parallel(n_jobs=n_jobs, return_as="generator")(jobs)
-
-
-# ------------------------------------------------------------------------------ the run
 
 
 def _prepare_target(target: pd.Series, target_kind: str, name: str
@@ -424,6 +208,7 @@ def run_target_experiment(
     dtypes: Mapping[str, Any] | None = None,
     max_rows: int | None = MAX_ROWS,
     progress: Callable[[int, int], None] | None = None,
+    executor: Executor | None = None,
 ) -> TargetResult:
     """Score no fill and every fill method by cross-validated model performance on a target.
 
@@ -456,6 +241,10 @@ def run_target_experiment(
         ``derive_seed(seed, "target-rows")`` (None: every row). The cost grows with the rows.
     progress : callable, optional
         Called as ``progress(done, total)`` after each task.
+    executor : Executor, optional
+        Where the (method, fold) tasks and the importance steps run
+        (:mod:`imputelab.executors.pool`, e.g. a Dask cluster), as the main experiment's
+        grid does; by default ``n_jobs`` local processes. The result does not depend on it.
 
     Returns
     -------
@@ -470,6 +259,95 @@ def run_target_experiment(
         classes or distinct values, with a class smaller than ``n_splits``, or with too few
         rows (fewer than 10 per fold).
     """
+    setup = _setup(working, kinds, fill_columns, target, target_kind, methods, n_splits,
+                   max_rows, seed, dtypes or {})
+    return _run(setup, executor if executor is not None else JoblibExecutor(n_jobs), seed,
+                progress)
+
+
+@dataclass(frozen=True)
+class _Setup:
+    """The checked request: rows, folds, candidates and what each method fills."""
+
+    shared: TargetShared
+    plan: dict[str, dict[str, Any]]
+    n_splits: int
+    classes: list[Any] | None
+    rows_used: int
+    rows_missing_target: int
+    rows_left_out: int
+    holed: list[str]
+    targets: dict[str, list[str]]
+    skipped: dict[str, dict[str, str]]
+    fallbacks: dict[str, str]
+
+
+def _setup(working: pd.DataFrame, kinds: Mapping[str, str], fill_columns: Sequence[str],
+           target: Any, target_kind: str,
+           methods: Sequence[str] | Mapping[str, Mapping[str, Any]], n_splits: Any,
+           max_rows: int | None, seed: int, dtypes: Mapping[str, Any]) -> _Setup:
+    n_splits, plan = _check_request(n_splits, max_rows, methods)
+    for method, params in plan.items():
+        get_method(method, **params)  # an unknown method is an OptionError
+    if not isinstance(target, pd.Series):
+        target = pd.Series(target, index=working.index)
+    fill_columns = _check_frames(working, kinds, fill_columns, target, target_kind)
+    name = f"target '{target.name}'" if target.name is not None else "the target"
+    y, known, classes = _prepare_target(target, target_kind, name)
+    rows, left_out = _rows_used(known, max_rows, seed)
+    frame, y = working.iloc[rows], y[rows]
+    if len(rows) < MIN_FOLD_ROWS * n_splits:
+        raise DataError(f"{name} is known in only {len(rows)} rows; {n_splits} folds need at "
+                        f"least {MIN_FOLD_ROWS * n_splits} ({MIN_FOLD_ROWS} a fold)")
+    task, metric, y, classes, splitter = _task_and_folds(y, classes, n_splits, seed, name)
+    folds = list(splitter.split(np.zeros((len(y), 1)), y))
+    holed = [c for c in fill_columns if frame[c].isna().any()]
+    fallbacks = {c: ("mode" if is_categorical(frame[c]) else "median") for c in holed}
+    targets, skipped = _method_targets(frame, kinds, holed, plan, dtypes)
+    return _Setup(TargetShared(frame, kinds, y, folds, task, metric, fill_columns), plan,
+                  n_splits, classes, len(rows), int((~known).sum()), left_out, holed, targets,
+                  skipped, fallbacks)
+
+
+def _run(setup: _Setup, executor: Executor, seed: int,
+         progress: Callable[[int, int], None] | None) -> TargetResult:
+    """The grid, the ranking, the importances of the best candidate with indicators."""
+    plan, n_splits, shared = setup.plan, setup.n_splits, setup.shared
+    skips = {m: {c: f for c, f in setup.fallbacks.items() if m in setup.skipped.get(c, {})}
+             for m in plan}
+    tasks = [(method, fold, plan.get(method, {}), setup.targets.get(method, []),
+              skips.get(method, {}), _task_seed(seed, method, fold))
+             for method in [None, *plan] for fold in range(n_splits)]
+    # the importances of the best "M + indicators" candidate: one step per fold, at the end
+    total = len(tasks) + (n_splits if plan and setup.holed else 0)
+    scores, probes, failures, seconds = _run_grid(executor, shared, tasks, plan,
+                                                  _offset(progress, 0, total))
+    order = [NO_FILL] + [c for m in plan for c in (m, f"{m} + indicators")]
+    candidates, best = summarise(scores, order, n_splits)
+    no_fill = candidates[NO_FILL]["lightgbm"]
+    no_fill_best = best["lightgbm"] == NO_FILL
+    within = bool(no_fill_best or (
+        no_fill.get("gap_to_best") is not None and no_fill["gap_to_best"] <= no_fill["gap_se"]))
+    source = indicator_source(candidates, plan)
+    importances = _importances(executor, probes, candidates, source, shared.metric, seed,
+                               n_splits, _offset(progress, len(tasks), total))
+    if progress is not None and len(tasks) + len(importances) < total:
+        progress(total, total)
+    indicators = indicator_summary(importances)
+    return TargetResult(
+        scores=scores, task=shared.task, metric=shared.metric, n_splits=n_splits, seed=seed,
+        rows_used=setup.rows_used, rows_missing_target=setup.rows_missing_target,
+        rows_left_out=setup.rows_left_out, classes=setup.classes, candidates=candidates,
+        best=best, no_fill_best=no_fill_best, no_fill_within_one_se=within,
+        indicators=indicators, indicator_candidate=source if indicators else None,
+        skipped=setup.skipped, failures=failures, seconds=seconds,
+        fallbacks={c: f for c, f in setup.fallbacks.items() if c in setup.skipped},
+    )
+
+
+def _check_request(n_splits: Any, max_rows: int | None,
+                   methods: Sequence[str] | Mapping[str, Mapping[str, Any]]
+                   ) -> tuple[int, dict[str, dict[str, Any]]]:
     if isinstance(n_splits, bool) or not isinstance(n_splits, int | np.integer) or n_splits < 2:
         raise OptionError(f"n_splits must be an integer of at least 2, got {n_splits!r}")
     n_splits = int(n_splits)
@@ -478,104 +356,83 @@ def run_target_experiment(
                           f"{n_splits} folds of {MIN_FOLD_ROWS} rows, got {max_rows}")
     plan = ({m: dict(p) for m, p in methods.items()} if isinstance(methods, Mapping)
             else {m: {} for m in methods})
-    classes_of = {m: get_method(m, **p).__class__ for m, p in plan.items()}  # OptionError
+    return n_splits, plan
+
+
+def _check_frames(working: pd.DataFrame, kinds: Mapping[str, str], fill_columns: Sequence[str],
+                  target: pd.Series, target_kind: str) -> list[str]:
+    """The target apart from the features and aligned with them; every column known."""
     if target_kind not in TARGET_KINDS:
         raise DataError(f"a {target_kind} column cannot be a target; the target must be one "
                         f"of: {', '.join(TARGET_KINDS)}")
-    if not isinstance(target, pd.Series):
-        target = pd.Series(target, index=working.index)
     if target.name is not None and target.name in working.columns:
         raise DataError(f"the target '{target.name}' is among the feature columns; the "
                         "target must never be used to fill the features")
     if len(target) != len(working) or not target.index.equals(working.index):
         raise DataError(f"the target ({len(target)} rows) is not aligned with the feature "
                         f"rows ({len(working)}): give it the same length and index")
-    fill_columns = list(fill_columns)
     unknown = [c for c in fill_columns if c not in working.columns]
     if unknown:
         raise DataError(f"fill columns not in the feature table: {', '.join(unknown)}")
     no_kind = [c for c in working.columns if c not in kinds]
     if no_kind:
         raise DataError(f"no kind given for feature columns: {', '.join(no_kind)}")
+    return list(fill_columns)
 
-    name = f"target '{target.name}'" if target.name is not None else "the target"
-    y, known, classes = _prepare_target(target, target_kind, name)
-    missing_target = int((~known).sum())
+
+def _rows_used(known: np.ndarray, max_rows: int | None, seed: int) -> tuple[np.ndarray, int]:
+    """Rows with a known target, at most ``max_rows`` of them, and how many were left out."""
     rows = np.flatnonzero(known)
-    left_out = 0
-    if max_rows is not None and len(rows) > max_rows:
-        rng = np.random.default_rng(derive_seed(seed, "target-rows"))
-        left_out = len(rows) - max_rows
-        rows = np.sort(rng.choice(rows, max_rows, replace=False))
-    frame = working.iloc[rows]
-    y = y[rows]
-    if len(rows) < MIN_FOLD_ROWS * n_splits:
-        raise DataError(f"{name} is known in only {len(rows)} rows; {n_splits} folds need at "
-                        f"least {MIN_FOLD_ROWS * n_splits} ({MIN_FOLD_ROWS} a fold)")
+    if max_rows is None or len(rows) <= max_rows:
+        return rows, 0
+    rng = np.random.default_rng(derive_seed(seed, "target-rows"))
+    return np.sort(rng.choice(rows, max_rows, replace=False)), len(rows) - max_rows
+
+
+def _task_and_folds(y: np.ndarray, classes: list[Any] | None, n_splits: int, seed: int,
+                    name: str) -> tuple[str, str, np.ndarray, list[Any] | None, Any]:
+    """Regression or classification, its metric, and the fold splitter."""
+    fold_seed = derive_seed(seed, "target-folds")
     if classes is None:
-        task = "regression"
         if len(np.unique(y)) < 2:
             raise DataError(f"{name} has fewer than 2 distinct values; nothing to predict")
-        metric = "r2"
-        splitter: Any = KFold(n_splits, shuffle=True,
-                              random_state=derive_seed(seed, "target-folds"))
-    else:
-        task = "classification"
-        counts = np.bincount(y, minlength=len(classes))
-        present = [c for c, k in zip(classes, counts, strict=True) if k > 0]
-        if len(present) < 2:
-            raise DataError(f"{name} has fewer than 2 classes; nothing to predict")
-        rare = [f"{c!s} ({k})" for c, k in zip(classes, counts, strict=True)
-                if 0 < k < n_splits]
-        if rare:
-            raise DataError(f"{name}: classes with fewer rows than the {n_splits} folds: "
-                            f"{', '.join(rare)}; merge them or use fewer folds")
-        if len(present) < len(classes):  # a label seen only in rows left out
-            y = pd.Categorical.from_codes(y, categories=classes)
-            y = pd.Categorical(y, categories=present).codes.astype(int)
-            classes = present
-        metric = "roc_auc" if len(classes) == 2 else "accuracy"
-        splitter = StratifiedKFold(n_splits, shuffle=True,
-                                   random_state=derive_seed(seed, "target-folds"))
-    folds = list(splitter.split(np.zeros((len(y), 1)), y))
+        return "regression", "r2", y, None, KFold(n_splits, shuffle=True,
+                                                  random_state=fold_seed)
+    counts = np.bincount(y, minlength=len(classes))
+    present = [c for c, k in zip(classes, counts, strict=True) if k > 0]
+    if len(present) < 2:
+        raise DataError(f"{name} has fewer than 2 classes; nothing to predict")
+    rare = [f"{c!s} ({k})" for c, k in zip(classes, counts, strict=True) if 0 < k < n_splits]
+    if rare:
+        raise DataError(f"{name}: classes with fewer rows than the {n_splits} folds: "
+                        f"{', '.join(rare)}; merge them or use fewer folds")
+    if len(present) < len(classes):  # a label seen only in rows left out
+        y = pd.Categorical.from_codes(y, categories=classes)
+        y = pd.Categorical(y, categories=present).codes.astype(int)
+        classes = present
+    metric = "roc_auc" if len(classes) == 2 else "accuracy"
+    return "classification", metric, y, classes, StratifiedKFold(
+        n_splits, shuffle=True, random_state=fold_seed)
 
-    dtypes = dtypes or {}
-    holed = [c for c in fill_columns if frame[c].isna().any()]
-    skipped: dict[str, dict[str, str]] = {}
-    fallbacks = {c: ("mode" if is_categorical(frame[c]) else "median") for c in holed}
-    targets: dict[str, list[str]] = {}
-    skips: dict[str, dict[str, str]] = {}
-    for method, cls in classes_of.items():
-        targets[method], skips[method] = [], {}
-        for column in holed:
-            n_labels = (len(frame[column].cat.categories) if is_categorical(frame[column])
-                        else None)
-            reason = cls.unsupported_reason(kinds[column], dtypes.get(column), n_labels)
-            if reason:
-                skipped.setdefault(column, {})[method] = reason
-                skips[method][column] = fallbacks[column]
-            else:
-                targets[method].append(column)
-    used_fallbacks = {c: fallbacks[c] for c in holed if c in skipped}
 
-    tasks = [(method, fold) for method in [None, *plan] for fold in range(n_splits)]
-    # the importances of the best "M + indicators" candidate: one step per fold, at the end
-    total = len(tasks) + (n_splits if plan and holed else 0)
-    jobs = [
-        delayed(_target_task)(
-            frame, kinds, y, folds[fold][0], folds[fold][1], task, metric, method,
-            plan.get(method, {}), targets.get(method, []), skips.get(method, {}),
-            fill_columns, _task_seed(seed, method, fold))
-        for method, fold in tasks
-    ]
+def _offset(progress: Callable[[int, int], None] | None, before: int, total: int
+            ) -> Callable[[int, int], None] | None:
+    """Progress of one stage of the run as a part of the whole run's count."""
+    if progress is None:
+        return None
+    return lambda done, _: progress(before + done, total)
+
+
+def _run_grid(executor: Executor, shared: TargetShared, tasks: list[tuple], plan: Mapping,
+              progress: Callable[[int, int], None] | None
+              ) -> tuple[pd.DataFrame, dict, list[dict[str, Any]], dict[str, float]]:
+    """Every (method, fold) task; the tidy scores, the probes, failures and seconds."""
     records: list[dict[str, Any]] = []
     probes: dict[tuple[str, int], tuple] = {}
     failures: list[dict[str, Any]] = []
     seconds = dict.fromkeys([NO_FILL, *plan], 0.0)
-    done = 0
-    for (method, fold), (rows_out, probe, spent, error) in zip(
-        tasks, _run(jobs, n_jobs), strict=True
-    ):
+    for (method, fold, *_), (rows_out, probe, spent, error) in zip(
+            tasks, executor.map(target_task, shared, tasks, progress), strict=True):
         key = NO_FILL if method is None else method
         seconds[key] += spent
         if error:
@@ -585,122 +442,27 @@ def run_target_experiment(
             records.append(record)
         if method is not None and probe is not None:
             probes[(method, fold)] = probe
-        done += 1
-        if progress is not None:
-            progress(done, total)
-
     columns = ["candidate", "method", "indicators", "model", "fold", "score"]
     scores = pd.DataFrame.from_records(records, columns=columns)
     scores["indicators"] = scores["indicators"].astype(bool)
     scores["fold"] = scores["fold"].astype(int)
     scores["score"] = scores["score"].astype(float)
-    order = [NO_FILL] + [c for m in plan for c in (m, f"{m} + indicators")]
-    candidates, best = _summarise(scores, order, n_splits)
-    no_fill = candidates[NO_FILL]["lightgbm"]
-    no_fill_best = best["lightgbm"] == NO_FILL
-    within = bool(no_fill_best or (
-        no_fill.get("gap_to_best") is not None and no_fill["gap_to_best"] <= no_fill["gap_se"]))
+    return scores, probes, failures, seconds
 
-    source = _indicator_source(candidates, plan)
-    importances: dict[int, dict[str, float]] = {}
-    if source is not None:
-        method = candidates[source]["method"]
-        folds_with = [f for f in range(n_splits) if (method, f) in probes]
-        jobs = [delayed(_importance_task)(probes[(method, f)], metric,
-                                          _task_seed(seed, method, f))
-                for f in folds_with]
-        for fold, found in zip(folds_with, _run(jobs, n_jobs), strict=True):
-            importances[fold] = found
-            done += 1
-            if progress is not None:
-                progress(done, total)
-    probes.clear()
-    if progress is not None and done < total:
-        progress(total, total)
-    indicators = _indicator_summary(importances)
-    return TargetResult(
-        scores=scores, task=task, metric=metric, n_splits=n_splits, seed=seed,
-        rows_used=len(rows), rows_missing_target=missing_target, rows_left_out=left_out,
-        classes=classes, candidates=candidates, best=best, no_fill_best=no_fill_best,
-        no_fill_within_one_se=within, indicators=indicators,
-        indicator_candidate=source if indicators else None,
-        skipped=skipped, fallbacks=used_fallbacks, failures=failures, seconds=seconds,
-    )
+
+def _importances(executor: Executor, probes: dict[tuple[str, int], tuple],
+                 candidates: Mapping[str, Any], source: str | None, metric: str, seed: int,
+                 n_splits: int, progress: Callable[[int, int], None] | None
+                 ) -> dict[int, dict[str, float]]:
+    """Permutation importances of the indicator columns of ``source``, fold by fold."""
+    if source is None:
+        return {}
+    method = candidates[source]["method"]
+    folds_with = [f for f in range(n_splits) if (method, f) in probes]
+    tasks = [(probes[(method, f)], _task_seed(seed, method, f)) for f in folds_with]
+    found = executor.map(importance_task, metric, tasks, progress)
+    return dict(zip(folds_with, found, strict=True))
 
 
 def _task_seed(seed: int, method: str | None, fold: int) -> int:
     return derive_seed(seed, "target", NO_FILL if method is None else method, fold)
-
-
-def _mean_se(values: np.ndarray) -> tuple[float, float]:
-    if len(values) == 0:
-        return math.nan, math.nan
-    se = float(values.std(ddof=1) / math.sqrt(len(values))) if len(values) > 1 else math.nan
-    return float(values.mean()), se
-
-
-def _summarise(scores: pd.DataFrame, order: list[str], n_splits: int
-               ) -> tuple[dict[str, dict[str, Any]], dict[str, str | None]]:
-    """Per candidate and model: mean, SE, folds; then the best and the paired gaps to it."""
-    candidates: dict[str, dict[str, Any]] = {}
-    per_fold: dict[tuple[str, str], np.ndarray] = {}
-    for candidate in order:
-        method = None if candidate == NO_FILL else candidate.removesuffix(" + indicators")
-        entry: dict[str, Any] = {"method": method, "indicators": candidate.endswith(
-            " + indicators")}
-        for model in MODELS:
-            if candidate == NO_FILL and model == "linear":
-                entry[model] = {"applicable": False, "reason": NOT_APPLICABLE}
-                continue
-            part = scores[(scores["candidate"] == candidate) & (scores["model"] == model)]
-            values = np.full(n_splits, np.nan)
-            values[part["fold"].to_numpy(int)] = part["score"].to_numpy(float)
-            finite = values[np.isfinite(values)]
-            mean, se = _mean_se(finite)
-            complete = len(finite) == n_splits
-            if complete:
-                per_fold[(candidate, model)] = values
-            entry[model] = {"applicable": True, "mean": mean, "se": se,
-                            "folds": int(len(finite)), "complete": complete,
-                            "per_fold": [float(v) for v in values],
-                            "gap_to_best": None, "gap_se": None}
-        candidates[candidate] = entry
-    best: dict[str, str | None] = {}
-    for model in MODELS:
-        ranked = [(c, candidates[c][model]["mean"]) for c in order if (c, model) in per_fold]
-        top = max(ranked, key=lambda item: item[1], default=None)  # first of equals wins
-        best[model] = None if top is None else top[0]
-        if top is None:
-            continue
-        for candidate in order:
-            if (candidate, model) in per_fold:
-                gap = per_fold[(top[0], model)] - per_fold[(candidate, model)]
-                mean, se = _mean_se(gap)
-                candidates[candidate][model]["gap_to_best"] = mean
-                candidates[candidate][model]["gap_se"] = se
-    return candidates, best
-
-
-def _indicator_source(candidates: Mapping[str, Mapping[str, Any]],
-                      plan: Mapping[str, Any]) -> str | None:
-    """The best complete ``M + indicators`` candidate with LightGBM (first of equals)."""
-    flagged = [f"{m} + indicators" for m in plan
-               if candidates[f"{m} + indicators"]["lightgbm"]["complete"]]
-    return max(flagged, key=lambda c: candidates[c]["lightgbm"]["mean"], default=None)
-
-
-def _indicator_summary(importances: Mapping[int, Mapping[str, float]]
-                       ) -> dict[str, dict[str, Any]]:
-    """Mean and SE over folds of each indicator's importance, and the recommendation."""
-    columns: list[str] = []
-    for fold in sorted(importances):
-        columns += [c for c in importances[fold] if c not in columns]
-    out = {}
-    for column in columns:
-        values = np.array([importances[f][column] for f in sorted(importances)
-                           if column in importances[f]])
-        mean, se = _mean_se(values)
-        recommend = bool(len(values) > 1 and mean > 0 and mean > 2 * se)
-        out[column] = {"importance": mean, "se": se, "folds": int(len(values)),
-                       "recommend": recommend}
-    return out
