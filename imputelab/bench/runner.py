@@ -3,16 +3,25 @@
 For each dataset (see :mod:`imputelab.bench.datasets`) the benchmark takes the rows complete over
 its benchmark columns, then:
 
-1. **chooses a plan** with :func:`imputelab.score.build.score_table` on its own mask draws (seed
-   derived from ``(seed, "selection")``), so the plan never sees the cells it is scored on;
-2. **hides cells** under each mask, ``repeats`` times (the experiment's seeds
+1. **hides cells** under each mask, ``repeats`` times (the experiment's seeds
    ``(seed, mask, repeat)``), and fills the same hidden cells with every imputelab method
-   (:func:`imputelab.score.experiment.run_experiment`), with the plan (each column takes its
-   method's fill of that draw; a ``blend`` column combines the draw's component fills with
-   the plan's weights), and with the scikit-learn references of :data:`REFERENCES`;
+   (:func:`imputelab.score.experiment.run_experiment`) and with the scikit-learn references of
+   :data:`REFERENCES`;
+2. **chooses a plan for each of those draws** with :func:`imputelab.score.build.score_table`
+   on the complete rows with that draw's hidden cells blank (seed derived from
+   ``(seed, "selection", mask, repeat)``). ``score``'s own masks hide only cells that are
+   still observed, so the cells a plan is scored on are never among the cells its choice was
+   scored on, and their values are not in the table it was chosen on; other draws' scored
+   cells may be, as they are other cells. The plan's fill of the draw is each column's chosen
+   method's fill of that draw from step 1 (a ``blend`` column combines the draw's component
+   fills with the plan's weights, which ``score`` fitted on its own draws). The methods fitted
+   in step 1 fit on the same masked table as the references; only the choice is made apart;
 3. for the ``gaussian`` set, computes the Bayes floor: the conditional mean of the hidden
    entries given the observed ones under the known parameters (Anderson 2003, *An
    Introduction to Multivariate Statistical Analysis*, 3rd ed., Theorem 2.5.1).
+
+Every grid (the methods' draws, the references' draws, each ``score`` run) runs on one
+executor (:mod:`imputelab.executors.pool`), so a Dask cluster runs them all.
 
 Errors are NRMSE (numeric columns, mean over columns) and the proportion of falsely
 classified labels (label columns, mean over columns), each with its standard error over the
@@ -38,11 +47,11 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from joblib import Parallel, delayed
 from threadpoolctl import threadpool_limits
 
 from imputelab.bench.datasets import Dataset, dataset_names, gaussian_parameters, load_dataset
 from imputelab.errors import OptionError
+from imputelab.executors.pool import Executor, JoblibExecutor
 from imputelab.executors.seeds import derive_seed
 from imputelab.frame.encoding import is_categorical
 from imputelab.frame.setup import default_action, working_setup
@@ -54,7 +63,7 @@ from imputelab.metrics.scores import nrmse, pfc
 from imputelab.score.build import CHOICE_RULES, ScoreOptions, plan_from_experiment, score_table
 from imputelab.score.experiment import ExperimentResult, run_experiment
 from imputelab.score.plan import Plan
-from imputelab.survey.table import SurveyOptions
+from imputelab.survey.table import SurveyOptions, survey_table
 
 __all__ = ["REFERENCES", "BenchOptions", "bayes_floor_fill", "plain_data", "run_bench",
            "write_bench"]
@@ -246,15 +255,15 @@ def bayes_floor_fill(values: np.ndarray, hidden: np.ndarray, mean: np.ndarray,
 # -- one dataset ---------------------------------------------------------------------------
 @dataclass
 class _Prepared:
+    used: pd.DataFrame  # the complete rows the benchmark uses, as loaded
     working: pd.DataFrame
     kinds: dict[str, str]
     columns: list[str]
-    table_path: Path
     rows_complete: int
-    rows_used: int
 
 
 def _prepare(dataset: Dataset, options: BenchOptions, tmp: Path) -> _Prepared:
+    """The complete rows (a seeded sample under a cap), read and encoded as ``score`` would."""
     complete = dataset.complete()
     cap = min([c for c in (options.max_rows, dataset.meta.get("bench", {}).get("max_rows"))
                if c is not None], default=None)
@@ -265,26 +274,49 @@ def _prepare(dataset: Dataset, options: BenchOptions, tmp: Path) -> _Prepared:
         used = used.reset_index(drop=True)
     path = tmp / f"{dataset.name}.csv"
     used.to_csv(path, index=False)
-    return _Prepared(working=pd.DataFrame(), kinds={}, columns=[], table_path=path,
-                     rows_complete=len(complete), rows_used=len(used))
+    survey = survey_table(read_table(path), SurveyOptions(kinds=dataset.kinds, diagnostics=False))
+    actions = {n: default_action(c.spec.kind, drop=c.drop, is_target=False)
+               for n, c in survey.columns.items()}
+    targets, encoding = working_setup(survey.typed, survey.specs, actions)
+    return _Prepared(used=used, working=encoding.encode(survey.typed),
+                     kinds=dict(encoding.kinds), columns=targets, rows_complete=len(complete))
 
 
-def _choose_plan(dataset: Dataset, prepared: _Prepared, options: BenchOptions,
-                 progress: Callable[[int, int], None] | None
-                 ) -> tuple[dict[str, Plan], float]:
-    """The plan ``score`` makes on the complete rows, from its own mask draws.
+def _selection_table(prepared: _Prepared, hidden: np.ndarray, path: Path) -> Path:
+    """The complete rows with one scored draw's hidden cells blank, as a CSV file."""
+    frame = prepared.used.copy()
+    for j, name in enumerate(prepared.columns):
+        rows = np.flatnonzero(hidden[:, j])
+        if len(rows):
+            column = frame[name].astype(object)
+            column.iloc[rows] = None
+            frame[name] = column
+    frame.to_csv(path, index=False)
+    return path
 
-    Returns the default plan under :data:`PLAN` and, from the same experiment, the plans the
-    other choice rules make (``plan[rule]``), for comparing the rules on the same cells.
+
+def _choose_plans(dataset: Dataset, prepared: _Prepared, options: BenchOptions,
+                  draw: tuple[str, int, np.ndarray], tmp: Path, executor: Executor,
+                  progress: Callable[[int, int], None] | None
+                  ) -> tuple[dict[str, Plan], float]:
+    """The plans ``score`` makes for one scored draw, on a table where its cells are blank.
+
+    The scored cells are holes of that table, and ``score``'s own masks hide only observed
+    cells, so no cell the plan is scored on is hidden, filled or seen by the choice. Returns
+    the default plan under :data:`PLAN` and, from the same experiment, the plans the other
+    choice rules make (``plan[rule]``), for comparing the rules on the same cells.
     """
-    score = ScoreOptions(survey=SurveyOptions(kinds=dataset.kinds, diagnostics=False),
-                         masks=list(options.masks), rate=options.rate,
+    mask, repeat, hidden = draw
+    path = _selection_table(prepared, hidden, tmp / f"{dataset.name}-{mask}-{repeat}.csv")
+    # Nothing is dropped: every benchmark column is filled, as every reference fills it.
+    survey_options = SurveyOptions(kinds=dataset.kinds, diagnostics=False, drop_threshold=1.0)
+    score = ScoreOptions(survey=survey_options, masks=list(options.masks), rate=options.rate,
                          repeats=options.selection_repeats,
-                         seed=derive_seed(options.seed, "selection"), sample=None,
+                         seed=derive_seed(options.seed, "selection", mask, repeat), sample=None,
                          n_jobs=options.n_jobs, downstream=False)
     start = time.perf_counter()
-    plan, survey, result = score_table(read_table(prepared.table_path), score,
-                                       progress=progress)
+    plan, survey, result = score_table(read_table(path), score, progress=progress,
+                                       executor=executor)
     seconds = time.perf_counter() - start
     actions = {n: default_action(c.spec.kind, drop=c.drop, is_target=False)
                for n, c in survey.columns.items()}
@@ -294,13 +326,8 @@ def _choose_plan(dataset: Dataset, prepared: _Prepared, options: BenchOptions,
         for rule in CHOICE_RULES:
             if rule != score.choice_rule:
                 plans[f"{PLAN}[{rule}]"] = plan_from_experiment(
-                    survey, result, replace(score, masks=list(options.masks),
-                                            choice_rule=rule),
+                    survey, result, replace(score, choice_rule=rule),
                     actions=actions, scored=scored, sample_rows=len(survey.typed))
-    targets, encoding = working_setup(survey.typed, survey.specs, actions)
-    prepared.working = encoding.encode(survey.typed)
-    prepared.kinds = dict(encoding.kinds)
-    prepared.columns = targets
     return plans, seconds
 
 
@@ -348,76 +375,124 @@ def _errors(working: pd.DataFrame, columns: list[str], hidden: np.ndarray,
             "pfc": float(np.mean(labels)) if labels else math.nan}
 
 
-def _bench_dataset(dataset: Dataset, options: BenchOptions, tmp: Path,
+@dataclass(frozen=True)
+class _Draws:
+    """What every reference task reads: the complete rows and every scored draw."""
+
+    working: pd.DataFrame
+    columns: list[str]
+    hidden: Mapping[tuple[str, int], np.ndarray]
+
+
+def _reference_grid(shared: _Draws, mask: str, repeat: int, name: str,
+                    seed: int) -> tuple[dict[str, np.ndarray], float]:
+    return _reference_task(shared.working, shared.hidden[mask, repeat], shared.columns, name,
+                           seed)
+
+
+def _reference_errors(prepared: _Prepared, result: ExperimentResult, options: BenchOptions,
+                      scales: Mapping[str, float], executor: Executor,
+                      progress: Callable[[int, int], None]
+                      ) -> dict[tuple[str, int], dict[str, dict[str, float]]]:
+    """Every scikit-learn reference's errors and seconds on every scored draw."""
+    working, columns = prepared.working, prepared.columns
+    shared = _Draws(working, columns, {(m, r): h for m, r, h in result.draws})
+    tasks = [(mask, repeat, ref, derive_seed(options.seed, mask, repeat, ref))
+             for mask, repeat, _ in result.draws for ref in REFERENCES]
+    per_draw: dict[tuple[str, int], dict[str, dict[str, float]]] = {}
+    for (mask, repeat, ref, _), (fills, seconds) in zip(
+            tasks, executor.map(_reference_grid, shared, tasks, progress), strict=True):
+        per_draw.setdefault((mask, repeat), {})[ref] = {
+            **_errors(working, columns, shared.hidden[mask, repeat], fills, scales),
+            "seconds": seconds}
+    return per_draw
+
+
+def _method_errors(prepared: _Prepared, result: ExperimentResult, mask: str, repeat: int,
+                   hidden: np.ndarray, scales: Mapping[str, float]) -> dict[str, dict]:
+    """Every imputelab method's errors and seconds on one scored draw."""
+    working, columns = prepared.working, prepared.columns
+    entry = {}
+    draw_fills = result.fills.get((mask, repeat), {})
+    for method in get_method_names():
+        fills = draw_fills.get(method)
+        if fills is None:
+            continue
+        pick = {n: fills[n][hidden[np.flatnonzero(hidden[:, j] | working[n].isna()
+                                                   .to_numpy()), j]]
+                for j, n in enumerate(columns) if n in fills}
+        entry[method] = {**_errors(working, columns, hidden, pick, scales),
+                         "seconds": result.task_seconds.get((mask, repeat, method), 0.0)}
+    return entry
+
+
+def _floor_errors(prepared: _Prepared, hidden: np.ndarray,
+                  scales: Mapping[str, float]) -> dict[str, float]:
+    """The Bayes floor's errors on one draw of the ``gaussian`` set."""
+    working, columns = prepared.working, prepared.columns
+    mean, cov = gaussian_parameters()
+    floor = bayes_floor_fill(working[columns].to_numpy(float), hidden, mean, cov)
+    fills = {n: floor[hidden[:, j], j] for j, n in enumerate(columns)}
+    return {**_errors(working, columns, hidden, fills, scales), "seconds": 0.0}
+
+
+def _bench_dataset(dataset: Dataset, options: BenchOptions, tmp: Path, executor: Executor,
                    progress: Callable[[str, int, int], None]) -> dict[str, Any]:
     prepared = _prepare(dataset, options, tmp)
-    plans, score_seconds = _choose_plan(dataset, prepared, options,
-                                        lambda d, t: progress("choosing the plan", d, t))
-    plan = plans[PLAN]
     working, columns = prepared.working, prepared.columns
     methods = {m: {} for m in get_method_names()}
     result = run_experiment(working, prepared.kinds, columns, methods=methods,
                             masks=list(options.masks), rate=options.rate,
                             repeats=options.repeats, seed=options.seed, n_jobs=options.n_jobs,
-                            keep_fills=True,
+                            keep_fills=True, executor=executor,
                             progress=lambda d, t: progress("imputelab methods", d, t))
     scales = {n: float(np.nanstd(working[n].to_numpy(float))) for n in columns
               if not is_categorical(working[n])}
-    tasks = [(mask, repeat, hidden, ref) for mask, repeat, hidden in result.draws
-             for ref in REFERENCES]
-    jobs = (delayed(_reference_task)(working, hidden, columns, ref,
-                                     derive_seed(options.seed, mask, repeat, ref))
-            for mask, repeat, hidden, ref in tasks)
-    runner = (Parallel(n_jobs=options.n_jobs, return_as="generator") if options.n_jobs > 1
-              else lambda js: (j[0](*j[1], **j[2]) for j in js))
-    per_draw: dict[tuple[str, int], dict[str, dict[str, float]]] = {}
-    for done, ((mask, repeat, hidden, ref), (fills, seconds)) in enumerate(
-            zip(tasks, runner(jobs), strict=True), start=1):
-        per_draw.setdefault((mask, repeat), {})[ref] = {
-            **_errors(working, columns, hidden, fills, scales), "seconds": seconds}
-        progress("scikit-learn references", done, len(tasks))
-    gaussian = dataset.name == "gaussian"
-    for mask, repeat, hidden in result.draws:
+    per_draw = _reference_errors(prepared, result, options, scales, executor,
+                                 lambda d, t: progress("scikit-learn references", d, t))
+    plans: dict[str, dict[str, Plan]] = {}
+    score_seconds = 0.0
+    for i, (mask, repeat, hidden) in enumerate(result.draws, start=1):
+        key = f"{mask}/{repeat}"
+        plans[key], seconds = _choose_plans(
+            dataset, prepared, options, (mask, repeat, hidden), tmp, executor,
+            lambda d, t, i=i: progress(f"choosing plan {i} of {len(result.draws)}", d, t))
+        score_seconds += seconds
         entry = per_draw.setdefault((mask, repeat), {})
-        for method in methods:
-            fills = result.fills.get((mask, repeat), {}).get(method)
-            if fills is None:
-                continue
-            pick = {n: fills[n][hidden[np.flatnonzero(hidden[:, j] | working[n].isna()
-                                                       .to_numpy()), j]]
-                    for j, n in enumerate(columns) if n in fills}
-            entry[method] = {**_errors(working, columns, hidden, pick, scales),
-                             "seconds": result.task_seconds.get((mask, repeat, method), 0.0)}
-        for label, chosen in plans.items():
-            fills, seconds = _plan_fill(chosen, result, working, columns, mask, repeat, hidden)
+        entry.update(_method_errors(prepared, result, mask, repeat, hidden, scales))
+        for label, chosen in plans[key].items():
+            fills, spent = _plan_fill(chosen, result, working, columns, mask, repeat, hidden)
             entry[label] = {**_errors(working, columns, hidden, fills, scales),
-                            "seconds": seconds}
-        if gaussian:
-            mean, cov = gaussian_parameters()
-            values = working[columns].to_numpy(float)
-            floor = bayes_floor_fill(values, hidden, mean, cov)
-            entry[BAYES] = {**_errors(working, columns, hidden,
-                                      {n: floor[hidden[:, j], j] for j, n in enumerate(columns)},
-                                      scales), "seconds": 0.0}
+                            "seconds": spent}
+        if dataset.name == "gaussian":
+            entry[BAYES] = _floor_errors(prepared, hidden, scales)
     masks_out = {mask: _summarise({r: per_draw[(mask, r)] for r in range(options.repeats)})
                  for mask in options.masks}
     return {
         "rows_complete": prepared.rows_complete,
-        "rows_used": prepared.rows_used,
+        "rows_used": len(prepared.used),
         "note": dataset.note,
         "columns": {n: prepared.kinds[n] for n in columns},
-        "plan": {n: plan.columns[n].method for n in columns},
-        "plan_rule": plan.settings.get("choice_rule"),
-        "other_rules": {label: {n: p.columns[n].method for n in columns}
-                        for label, p in plans.items() if label != PLAN},
-        "plan_blend": next(({"weights": plan.columns[n].params.get("weights"),
-                             "label_method": plan.columns[n].params.get("label_method")}
-                            for n in columns if plan.columns[n].method == "blend"), None),
+        "plans": {key: {n: p[PLAN].columns[n].method for n in columns}
+                  for key, p in plans.items()},
+        "plan_rule": next(iter(plans.values()))[PLAN].settings.get("choice_rule"),
+        "other_rules": {key: {label: {n: p.columns[n].method for n in columns}
+                              for label, p in chosen.items() if label != PLAN}
+                        for key, chosen in plans.items()},
+        "plan_blend": {key: _blend_params(p[PLAN], columns) for key, p in plans.items()
+                       if _blend_params(p[PLAN], columns) is not None},
         "plan_score_seconds": round(score_seconds, 2),
         "experiment_blend_weights": result.blend.get("weights"),
         "failures": result.failures,
         "masks": masks_out,
     }
+
+
+def _blend_params(plan: Plan, columns: Sequence[str]) -> dict[str, Any] | None:
+    """The blend weights and label method of a plan that blends some column, else None."""
+    return next(({"weights": plan.columns[n].params.get("weights"),
+                  "label_method": plan.columns[n].params.get("label_method")}
+                 for n in columns if plan.columns[n].method == "blend"), None)
 
 
 def _mean_se(values: list[float]) -> tuple[float, float]:
@@ -466,7 +541,8 @@ def _summarise(draws: Mapping[int, Mapping[str, Mapping[str, float]]]) -> dict[s
 def run_bench(options: BenchOptions,
               progress: Callable[[str, int, int], None] | None = None,
               note: Callable[[str], None] | None = None,
-              done: Callable[[dict[str, Any]], None] | None = None) -> dict[str, Any]:
+              done: Callable[[dict[str, Any]], None] | None = None,
+              executor: Executor | None = None) -> dict[str, Any]:
     """Run the benchmark; the results as plain data (see :func:`write_bench`).
 
     Parameters
@@ -478,8 +554,13 @@ def run_bench(options: BenchOptions,
         Called with one line when a dataset is skipped or finished.
     done : callable, optional
         Called with the results so far after each dataset (e.g. to write them).
+    executor : Executor, optional
+        Where the grids run (:mod:`imputelab.executors.pool`; e.g. a Dask cluster): the
+        methods' experiment, the references and every ``score`` run that chooses a plan. By
+        default ``options.n_jobs`` local processes. The results do not depend on it.
     """
     options.validate()
+    executor = executor or JoblibExecutor(options.n_jobs)
     progress = progress or (lambda stage, done, total: None)
     note = note or (lambda line: None)
     names = list(options.datasets or dataset_names())
@@ -504,7 +585,7 @@ def run_bench(options: BenchOptions,
                 continue
             began = time.perf_counter()
             results["datasets"][name] = _bench_dataset(
-                dataset, options, Path(tmp),
+                dataset, options, Path(tmp), executor,
                 lambda stage, done, total, n=name: progress(f"{n}: {stage}", done, total))
             results["datasets"][name]["seconds"] = round(time.perf_counter() - began, 1)
             note(_one_line(name, results["datasets"][name]))
@@ -543,8 +624,9 @@ def results_markdown(results: Mapping[str, Any], command: str = "") -> str:
     if results.get("partial"):
         lines += ["**Partial results: the run was still going when this was written.**", ""]
     lines += [f"Masks {', '.join(s['masks'])} at rate {s['rate']}; {s['repeats']} scored draws "
-              f"per mask (seed {s['seed']}); the plan chosen by `score` on "
-              f"{s['selection_repeats']} other draws per mask. {results['machine']['cores']} "
+              f"per mask (seed {s['seed']}); each draw's plan chosen by `score` on the table with "
+              f"that draw's cells blank, from {s['selection_repeats']} draws per mask of its own "
+              f"among the cells still observed. {results['machine']['cores']} "
               f"cores, Python {results['machine']['python']}; {results['seconds']:.0f} s.",
               "", "Errors: NRMSE (mean over numeric columns) and PFC (share of wrong labels, "
               "mean over label columns), mean ± standard error over the draws. Ratios divide "
@@ -575,13 +657,15 @@ def results_markdown(results: Mapping[str, Any], command: str = "") -> str:
                    else f", its {entry['rows_used']:,} complete rows")
         lines += ["", f"## {name}", "",
                   f"{len(entry['columns'])} columns{sampled}. {entry['note']}".rstrip(), ""]
-        chosen = pd.Series(entry["plan"]).value_counts()
-        lines.append("Plan: " + ", ".join(f"{m} × {c}" for m, c in chosen.items())
-                     + f" (chosen in {entry['plan_score_seconds']:.1f} s).")
-        if entry["plan_blend"]:
-            weights = ", ".join(f"{m} {w:.2f}" for m, w in entry["plan_blend"]["weights"].items())
-            lines.append(f"Blend weights in the plan: {weights}; labels from "
-                         f"{entry['plan_blend']['label_method'] or '-'}.")
+        chosen = pd.Series([m for plan in entry["plans"].values() for m in plan.values()]
+                           ).value_counts()
+        lines.append(f"Plans (one per scored draw, chosen in {entry['plan_score_seconds']:.1f} s "
+                     "in all), column × draw: "
+                     + ", ".join(f"{m} × {c}" for m, c in chosen.items()) + ".")
+        for key, blend in entry["plan_blend"].items():
+            weights = ", ".join(f"{m} {w:.2f}" for m, w in blend["weights"].items())
+            lines.append(f"Blend weights in the plan for {key}: {weights}; labels from "
+                         f"{blend['label_method'] or '-'}.")
         for mask, summary in entry["masks"].items():
             lines += ["", f"### {name}, {mask}", "",
                       "| method | NRMSE | × best | PFC | × best | s | × RF |",
