@@ -3,7 +3,9 @@
 :func:`build_report` reads the file the way the plan says, fills it in memory with the fill
 engine (as ``imputelab fill`` would), takes the survey's evidence, and returns the page;
 :func:`write_report` writes it atomically. Nothing is re-scored: the experiment's numbers
-come from the plan.
+come from the plan, and so do the survey's checks when the plan stores them
+(:attr:`~imputelab.score.plan.Plan.survey`); only an older plan, or other survey options,
+has the file surveyed again.
 
 The page needs nothing outside itself: the style sheet is inline, the charts are inline SVG
 made by :mod:`imputelab.report.charts`, there is no script, and a Content-Security-Policy forbids
@@ -21,7 +23,7 @@ import html
 import math
 import platform
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from importlib.metadata import PackageNotFoundError, version
 from pathlib import Path
 from typing import Any
@@ -93,6 +95,7 @@ class _Facts:
     filled: pd.DataFrame  # after the plan's fill (dropped columns removed)
     fill: FillReport
     charts: Any  # the imputelab.report.charts module, imported when a report is made
+    table_wide: dict[str, Any] | None = None  # Little's test and co-missingness, if checked
     figures: list[str] = field(default_factory=list)
 
     def blank(self) -> pd.DataFrame:
@@ -499,9 +502,7 @@ def _section_filling(facts: _Facts) -> str:
 
 def _section_diagnostics(facts: _Facts) -> str:
     charts, plan = facts.charts, facts.plan
-    survey = facts.survey
-    table_wide = survey.evidence.table_dict() if survey is not None and (
-        survey.evidence is not None) else None
+    table_wide = facts.table_wide
     out = []
     out.append("<h3>Little's MCAR test</h3>")
     if table_wide is None:
@@ -671,6 +672,34 @@ code{background:none;padding:0}
 """
 
 
+def _reads_as_plan(options: SurveyOptions, plan: Plan) -> bool:
+    """Whether ``options`` read the file as the plan's survey did (jobs and checks aside)."""
+    def bare(o: SurveyOptions) -> SurveyOptions:
+        return replace(o, n_jobs=1, diagnostics=True)
+
+    return bare(options) == bare(survey_options_for(plan))
+
+
+def _table_checks(table: Table, plan: Plan, survey: Survey | None,
+                  options: SurveyOptions | None) -> tuple[Survey | None, dict[str, Any] | None]:
+    """The survey to take column evidence from (None: the plan's) and the table-wide checks.
+
+    A plan made by score stores its survey's table-wide checks (:attr:`Plan.survey`) and every
+    column's evidence; they are used whenever they say what a new survey would (the survey
+    that made the plan, or the same reading of the file with the checks asked for). Only
+    then is the file surveyed again: for an older plan, or for other survey options.
+    """
+    stored = plan.survey
+    options = options or survey_options_for(plan)
+    if stored is not None and (survey is not None or (
+            _reads_as_plan(options, plan) and (stored.get("checks") or not options.diagnostics))):
+        wanted = survey is not None or options.diagnostics
+        return None, stored if stored.get("checks") and wanted else None
+    if survey is None:
+        survey = survey_table(table, options)
+    return survey, survey.evidence.table_dict() if survey.evidence is not None else None
+
+
 def build_report(
     table: Table,
     plan: Plan,
@@ -688,8 +717,9 @@ def build_report(
         The file the plan was made from (checked by its fingerprint, as ``fill`` does).
     plan : Plan
     survey : Survey, optional
-        The survey behind the plan (``score`` has it). Without one the file is surveyed
-        again with ``survey_options``, by default :func:`survey_options_for` the plan.
+        The survey behind the plan (``score`` has it), for a plan that does not store its
+        checks. Without either, the file is surveyed again with ``survey_options``, by
+        default :func:`survey_options_for` the plan.
     survey_options : SurveyOptions, optional
     force : bool
         Report on a file whose content differs from the plan's (``--force``).
@@ -713,11 +743,10 @@ def build_report(
     planned = [c for c in typed.columns if c in plan.columns]
     filled = fill_frame(typed[planned], plan, report=fill)
     tick(1, steps)
-    if survey is None:
-        survey = survey_table(table, survey_options or survey_options_for(plan))
+    survey, table_wide = _table_checks(table, plan, survey, survey_options)
     tick(2, steps)
     facts = _Facts(table=table, plan=plan, survey=survey, typed=typed[planned], filled=filled,
-                   fill=fill, charts=charts)
+                   fill=fill, charts=charts, table_wide=table_wide)
     body = []
     for i, (anchor, title, make) in enumerate(SECTIONS, start=1):
         body.append(f'<section id="{anchor}"><h2><span class="no">{i}</span>'

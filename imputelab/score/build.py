@@ -377,7 +377,10 @@ def plan_from_experiment(
         "use_target": options.use_target,
         "imputelab_version": _version(),
     }
-    return Plan(source=source, settings=settings, columns=columns)
+    checks = survey.evidence.table_dict() if survey.evidence is not None else {}
+    table_wide = {"checks": survey.evidence is not None,
+                  **{k: checks[k] for k in ("mcar_test", "co_missing") if k in checks}}
+    return Plan(source=source, settings=settings, columns=columns, survey=table_wide)
 
 
 def _apply_evidence(plan: ColumnPlan, col: ColumnSurvey, values: pd.Series) -> None:

@@ -8,7 +8,8 @@ A plan is plain data written as versioned JSON that a person can read and edit::
      "downstream": {...},  # with a target: every fill scored by models of the target
      "columns": {NAME: {"kind", "missing_fraction", "action", "method", "params",
                         "reason", "scores": {METHOD: {METRIC: VALUE}}, "cleaning": {...},
-                        "indicator": false, "evidence": {...}}}}
+                        "indicator": false, "evidence": {...}}},
+     "survey": {"checks", "mcar_test", "co_missing"}}  # table-wide checks, for the report
 
 ``action`` is ``impute``, ``drop`` (removed from the output) or ``exclude`` (passed through
 unchanged: identifiers, free text, the target). A user may change ``method``, ``params``,
@@ -112,6 +113,9 @@ class Plan:
     format: str = PLAN_FORMAT
     version: int = PLAN_VERSION
     downstream: dict[str, Any] = field(default_factory=dict)
+    #: The survey's table-wide checks for the report (``checks``, ``mcar_test``, ``co_missing``);
+    #: None in plans made before score stored them.
+    survey: dict[str, Any] | None = None
 
     def ranking_metric(self, kind: str) -> str:
         """The score the choice ranked a column of ``kind`` by.
@@ -134,6 +138,7 @@ class Plan:
             "settings": self.settings,
             "downstream": self.downstream,
             "columns": {name: asdict(col) for name, col in self.columns.items()},
+            **({"survey": self.survey} if self.survey is not None else {}),
         })
 
     def to_json(self) -> str:
@@ -183,7 +188,8 @@ class Plan:
                 raise PlanError(f"{origin}: column '{name}' is to be imputed but has no method")
             columns[name] = col
         return cls(source=dict(data.get("source") or {}), settings=dict(data.get("settings") or {}),
-                   columns=columns, downstream=dict(data.get("downstream") or {}))
+                   columns=columns, downstream=dict(data.get("downstream") or {}),
+                   survey=dict(data["survey"]) if isinstance(data.get("survey"), Mapping) else None)
 
     @classmethod
     def load(cls, path: str | Path, *, option: str = "--plan") -> Plan:
