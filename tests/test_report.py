@@ -281,7 +281,7 @@ def test_the_survey_read_as_the_plan_finds_the_plans_evidence(trip_log_plan):
 
 def test_a_plan_with_stored_checks_is_reported_without_a_new_survey(trip_log_plan,
                                                                       monkeypatch):
-    import imputelab.report.page as page_module
+    import imputelab.report.facts as facts_module
 
     plan = Plan.load(trip_log_plan)
     assert plan.survey is not None and plan.survey["checks"] is True
@@ -295,7 +295,7 @@ def test_a_plan_with_stored_checks_is_reported_without_a_new_survey(trip_log_pla
         def no_survey(*args, **kwargs):
             raise AssertionError("the report surveyed the file again")
 
-        monkeypatch.setattr(page_module, "survey_table", no_survey)
+        monkeypatch.setattr(facts_module, "survey_table", no_survey)
         stored = build_report(table, plan, survey_options=survey_options_for(plan))
     # The stored checks give the page a fresh survey of the same file gives: the same text
     # and numbers; chart coordinates may move in the sixth digit (the plan keeps six).
