@@ -163,9 +163,11 @@ def test_no_plan_is_chosen_on_the_cells_it_is_scored_on(tiny_bench) -> None:
 @pytest.mark.parametrize("args, words", [
     (["--datasets", "nope"], "--datasets: unknown dataset 'nope'"),
     (["--masks", "pattern"], "--masks: 'pattern'"),
-    (["--repeats", "0"], "--repeats must be at least 1"),
-    (["--rate", "1.5"], "--rate must be strictly between 0 and 1"),
-    (["--max-rows", "10"], "--max-rows must be at least 50"),
+    (["--repeats", "0"], "--repeats must be a whole number of at least 1"),
+    (["--selection-repeats", "0"], "--selection-repeats must be a whole number of at least 1"),
+    (["--rate", "1.5"], "--rate must be a number strictly between 0 and 1"),
+    (["--max-rows", "10"], "--max-rows must be a whole number of at least 50"),
+    (["--seed", "-1"], "--seed must be a whole number of at least 0"),
 ])
 def test_bad_options_exit_2_with_one_line(tmp_path, args, words) -> None:
     result = invoke("bench", *args, "--out", tmp_path / "o")

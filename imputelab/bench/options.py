@@ -7,7 +7,8 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from imputelab.bench.datasets import dataset_names
-from imputelab.errors import OptionError
+from imputelab.checks import check_count, check_seed, check_share
+from imputelab.errors import OptionError, param
 from imputelab.masks import get_mask_names
 
 __all__ = ["BAYES", "DEFAULT_MASKS", "PLAN", "BenchOptions"]
@@ -54,24 +55,20 @@ class BenchOptions:
         known = dataset_names()
         for name in self.datasets or ():
             if name not in known:
-                raise OptionError(f"--datasets: unknown dataset '{name}'; choose from: "
+                raise OptionError(f"{param('datasets')}: unknown dataset '{name}'; choose from: "
                                   f"{', '.join(known)}")
         if self.datasets is not None and not self.datasets:
-            raise OptionError("--datasets: give at least one dataset")
+            raise OptionError(f"{param('datasets')}: give at least one dataset")
         if not self.masks:
-            raise OptionError("--masks: give at least one mask")
+            raise OptionError(f"{param('masks')}: give at least one mask")
         for name in self.masks:
             if name not in get_mask_names() or name == "pattern":
-                raise OptionError(f"--masks: '{name}' is not a mask the benchmark can use; "
-                                  "choose from: mar, mcar, mnar (complete rows have no "
+                raise OptionError(f"{param('masks')}: '{name}' is not a mask the benchmark can "
+                                  "use; choose from: mar, mcar, mnar (complete rows have no "
                                   "holes for pattern to replay)")
-        if not 0.0 < self.rate < 1.0:
-            raise OptionError(f"--rate must be strictly between 0 and 1, got {self.rate}")
-        if self.repeats < 1:
-            raise OptionError(f"--repeats must be at least 1, got {self.repeats}")
-        if self.selection_repeats < 1:
-            raise OptionError("--selection-repeats must be at least 1")
-        if self.max_rows is not None and self.max_rows < 50:
-            raise OptionError(f"--max-rows must be at least 50, got {self.max_rows}")
-        if self.seed < 0:
-            raise OptionError(f"--seed must be 0 or more, got {self.seed}")
+        check_share(self.rate, "rate")
+        check_count(self.repeats, "repeats")
+        check_count(self.selection_repeats, "selection_repeats")
+        if self.max_rows is not None:
+            check_count(self.max_rows, "max_rows", low=50)
+        check_seed(self.seed)

@@ -29,7 +29,7 @@ def section_diagnostics(facts: Facts) -> str:
     out = []
     out.append("<h3>Little's MCAR test</h3>")
     if table_wide is None:
-        out.append("<p>Not run: the survey's checks were switched off (--no-checks).</p>")
+        out.append("<p>Not run: the survey's checks were switched off.</p>")
     else:
         test = table_wide["mcar_test"]
         if test["testable"]:

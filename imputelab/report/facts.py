@@ -90,7 +90,7 @@ def survey_options_for(plan: Plan, given: SurveyOptions | None = None, *,
     ----------
     plan : Plan
     given : SurveyOptions, optional
-        Options from the command line (``--kind``, ``--missing-code``, ...); a column named
+        Options given by the caller (``kinds``, ``missing_codes``, ...); a column named
         there is read as they say.
     drop_threshold : float, optional
         Overrides the plan's threshold.

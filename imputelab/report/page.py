@@ -72,7 +72,7 @@ def build_report(
         default :func:`survey_options_for` the plan.
     survey_options : SurveyOptions, optional
     force : bool
-        Report on a file whose content differs from the plan's (``--force``).
+        Report on a file whose content differs from the plan's.
     progress : callable, optional
         ``progress(done, total)`` after each step.
 
