@@ -251,7 +251,7 @@ def method_scores(
         _row_labels(ax, names, values, err, by_mask or {}, chosen)
         better = "higher" if greater_is_better else "lower"
         _rows_axes(fig, ax, names, xlabel=f"{metric} ({better} is better)", ylabel="method",
-                   title=f"{column}: {metric} of every method", handles=handles)
+                   title=f"{column}: selection scores ({metric})", handles=handles)
     return fig
 
 
