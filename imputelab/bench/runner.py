@@ -9,13 +9,15 @@ its benchmark columns, then:
    :data:`REFERENCES`;
 2. **chooses a plan for each of those draws** with :func:`imputelab.score.build.score_table`
    on the complete rows with that draw's hidden cells blank (seed derived from
-   ``(seed, "selection", mask, repeat)``). ``score``'s own masks hide only cells that are
-   still observed, so the cells a plan is scored on are never among the cells its choice was
-   scored on, and their values are not in the table it was chosen on; other draws' scored
-   cells may be, as they are other cells. The plan's fill of the draw is each column's chosen
-   method's fill of that draw from step 1 (a ``blend`` column combines the draw's component
-   fills with the plan's weights, which ``score`` fitted on its own draws). The methods fitted
-   in step 1 fit on the same masked table as the references; only the choice is made apart;
+   ``(seed, "selection", mask, repeat)``), and fills the draw with it: each column takes its
+   chosen method's fill of that draw from step 1 (a ``blend`` column combines the draw's
+   component fills with the plan's weights, which ``score`` fitted on its own draws).
+
+   What holds: ``score``'s own masks hide only cells observed in the table it reads, so no
+   cell a draw is scored on is hidden or scored by the choice of its plan, and its value is
+   not in the table that choice reads. What does not: the cells other scored draws hide are
+   observed in that table (each draw is judged on its own cells only), and the methods of
+   step 1, like the references, fit on the draw's masked table;
 3. for the ``gaussian`` set, computes the Bayes floor: the conditional mean of the hidden
    entries given the observed ones under the known parameters (Anderson 2003, *An
    Introduction to Multivariate Statistical Analysis*, 3rd ed., Theorem 2.5.1).
