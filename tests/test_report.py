@@ -277,3 +277,62 @@ def test_the_survey_read_as_the_plan_finds_the_plans_evidence(trip_log_plan):
         assert (check or {}).get("verdict") == (planned or {}).get("verdict"), name
         assert [r["when"] for r in found.evidence.get("structural", [])] == [
             r["when"] for r in col.evidence.get("structural", [])], name
+
+
+def test_a_plan_with_stored_checks_is_reported_without_a_new_survey(trip_log_plan,
+                                                                      monkeypatch):
+    import imputelab.report.facts as facts_module
+
+    plan = Plan.load(trip_log_plan)
+    assert plan.survey is not None and plan.survey["checks"] is True
+    assert set(plan.survey) == {"checks", "mcar_test", "co_missing"}
+    table = read_table(trip_log_plan.parent / "trips.csv")
+    older = Plan.from_dict({k: v for k, v in plan.to_dict().items() if k != "survey"})
+    assert older.survey is None and "survey" not in older.to_dict()  # older plans still load
+    with threadpool_limits(limits=1):
+        surveyed = build_report(table, older, survey_options=survey_options_for(older))
+
+        def no_survey(*args, **kwargs):
+            raise AssertionError("the report surveyed the file again")
+
+        monkeypatch.setattr(facts_module, "survey_table", no_survey)
+        stored = build_report(table, plan, survey_options=survey_options_for(plan))
+    # The stored checks give the page a fresh survey of the same file gives: the same text
+    # and numbers; chart coordinates may move in the sixth digit (the plan keeps six).
+    def text(page: str) -> str:
+        return re.sub(r"<svg.*?</svg>", "<svg/>", page, flags=re.S)
+
+    assert text(stored) == text(surveyed)
+    assert stored.count("<svg") == surveyed.count("<svg")
+    assert f"p = {plan.survey['mcar_test']['p_value']:.3g}" in section(stored, "diagnostics")
+    with pytest.raises(AssertionError, match="surveyed the file again"):
+        build_report(table, plan, survey_options=SurveyOptions(kinds={"depot": "text"}))
+
+
+def test_expected_error_is_shown_beside_the_selection_scores_when_the_plan_has_it(
+        trip_log_plan):
+    import imputelab.report.charts as charts
+    from imputelab.fill.frame import FillReport
+    from imputelab.report.experiment import section_experiment
+    from imputelab.report.facts import Facts
+
+    def experiment(plan: Plan) -> str:
+        facts = Facts(table=None, plan=plan, survey=None, typed=pd.DataFrame(),
+                      filled=pd.DataFrame(), fill=FillReport(), charts=charts)
+        with threadpool_limits(limits=1):
+            return section_experiment(facts)
+
+    plan = Plan.load(trip_log_plan)
+    scored = [n for n, c in plan.columns.items() if c.scores and c.action == "impute"]
+    without = experiment(plan)  # plans made before expected_error: nothing shown, no error
+    assert "held-out cells" not in without
+    assert without.count("Selection scores: ") == len(scored)
+    name = scored[0]
+    plan.columns[name].expected_error = {"metric": "nrmse", "score": 0.5123, "se": 0.021,
+                                         "draws": 6}
+    shown = experiment(plan)
+    article = shown[shown.index(f"<code>{name}</code>"):]
+    article = article[:article.index("</article>")]
+    assert article.count("expected error (held-out cells)") == 1
+    assert "nrmse 0.5123 &plusmn; 0.021 (SE), over 6 draw(s)" in article
+    assert shown.count("held-out cells") == 1  # only the column that has one

@@ -19,7 +19,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from imputelab.errors import DataError, OptionError
+from imputelab.errors import DataError, OptionError, param
 
 __all__ = ["META_DIR", "Dataset", "dataset_names", "gaussian_parameters", "load_dataset",
            "read_meta"]
@@ -72,7 +72,7 @@ def read_meta(name: str) -> dict[str, Any]:
     """The meta file of one dataset."""
     path = META_DIR / f"{name}.toml"
     if not path.is_file():
-        raise OptionError(f"--datasets: unknown dataset '{name}'; choose from: "
+        raise OptionError(f"{param('datasets')}: unknown dataset '{name}'; choose from: "
                           f"{', '.join(dataset_names())}")
     with path.open("rb") as handle:
         return tomllib.load(handle)
@@ -122,15 +122,15 @@ def _california(california: str | Path | None = None, **_: Any) -> tuple[pd.Data
     if california is not None:
         path = Path(california)
         if not path.is_file():
-            raise DataError(f"--california {path}: no such file")
+            raise DataError(f"{param('california')} {path}: no such file")
         return _plain(pd.read_csv(path)), f"read from {path}"
     from sklearn.datasets import fetch_california_housing
 
     try:
         bunch = fetch_california_housing(download_if_missing=False, as_frame=True)
     except OSError:
-        return pd.DataFrame(), ("skipped: give --california PATH (the CSV version), or put "
-                                "scikit-learn's copy in its data folder")
+        return pd.DataFrame(), (f"skipped: give {param('california')} (the path of the CSV "
+                                "version), or put scikit-learn's copy in its data folder")
     return bunch.frame.astype(float), "scikit-learn's cached copy (8 features + target)"
 
 
@@ -179,7 +179,7 @@ def load_dataset(name: str, *, california: str | Path | None = None) -> Dataset:
     """
     meta = read_meta(name)
     if name not in LOADERS:
-        raise OptionError(f"--datasets: '{name}' has a meta file but no loader")
+        raise OptionError(f"{param('datasets')}: '{name}' has a meta file but no loader")
     loaded = LOADERS[name](california=california)
     frame, note = loaded if isinstance(loaded, tuple) else (loaded, "")
     columns = list(meta.get("bench", {}).get("columns", frame.columns))

@@ -261,8 +261,18 @@ def _make_trip_log_with_truth(
     _check_args(n_trips, seed)
     n = int(n_trips)
     rng = np.random.default_rng(seed)
+    # One generator, drawn from in a fixed order: departures, trips, conditions, the words,
+    # then the blanks (after all true values, so the truth does not depend on the masks).
+    v = _departures(rng, n)
+    v.update(_trips(rng, n, v))
+    v.update(_conditions(rng, n, v))
+    v.update(_words(rng, n, v))
+    frame = _blanked(rng, n, v)
+    return frame, _truth(v)
 
-    # Departure: weekdays busier than weekends, hours weighted towards early morning.
+
+def _departures(rng: np.random.Generator, n: int) -> dict[str, np.ndarray]:
+    """Departure times (weekdays busier than weekends, early mornings busiest), in order."""
     days = np.arange(_N_DAYS)
     weekday = (days + (_FIRST_DAY.astype(np.int64) + 3)) % 7  # 1970-01-01 was a Thursday
     day_w = np.select([weekday == 5, weekday == 6], [0.7, 0.4], 1.0)
@@ -273,8 +283,12 @@ def _make_trip_log_with_truth(
     day, rest = np.divmod(offset_min, 1440)
     hour, minute = np.divmod(rest, 60)
     departed = _FIRST_DAY.astype("datetime64[m]") + offset_min.astype("timedelta64[m]")
-    night = (hour >= 22) | (hour < 6)
+    return {"day": day, "hour": hour, "minute": minute, "departed": departed,
+            "night": (hour >= 22) | (hour < 6)}
 
+
+def _trips(rng: np.random.Generator, n: int, v: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """Depot, distance, cargo, payload, stops and the trip's duration and arrival."""
     depot = rng.choice(len(_DEPOTS), size=n, p=_DEPOT_SHARE)
     distance = _DEPOT_MEDIAN_KM[depot] * np.exp(rng.normal(0.0, 0.6, n))
     # Redraw out-of-range trips rather than clip them, so no spike builds up at the limits.
@@ -288,7 +302,6 @@ def _make_trip_log_with_truth(
     cum = np.cumsum(_CLASS_MIX, axis=1)
     cargo = (rng.random(n)[:, None] > cum[depot]).sum(axis=1)
     cargo = np.minimum(cargo, len(_CLASSES) - 1)
-    refrigerated = cargo != _DRY
 
     payload = _CLASS_MEDIAN_KG[cargo] * (distance / 200.0) ** 0.15 * np.exp(rng.normal(0, 0.4, n))
     payload = (np.round(np.clip(payload, 200.0, 24000.0) / 10.0) * 10).astype(np.int64)
@@ -300,8 +313,17 @@ def _make_trip_log_with_truth(
     stop_h = stops * rng.uniform(0.25, 0.5, n)
     trip_h = (drive_h + breaks_h + stop_h) * np.exp(rng.normal(0.0, 0.08, n))
     trip_min = np.maximum(10, np.rint(trip_h * 60.0)).astype(np.int64)
-    arrived = departed + trip_min.astype("timedelta64[m]")
+    return {"depot": depot, "distance": distance, "cargo": cargo, "refrigerated": cargo != _DRY,
+            "payload": payload, "stops": stops, "trip_h": trip_h,
+            "planned_h": drive_h + breaks_h + stop_h,
+            "arrived": v["departed"] + trip_min.astype("timedelta64[m]")}
 
+
+def _conditions(rng: np.random.Generator, n: int,
+                v: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """Setpoint, outside temperature, door minutes, fuel, spoilage and the driver's rating."""
+    cargo, depot, day, hour, minute = v["cargo"], v["depot"], v["day"], v["hour"], v["minute"]
+    distance, payload, stops, trip_h = v["distance"], v["payload"], v["stops"], v["trip_h"]
     setpoint = np.full(n, np.nan)
     bounds = {0: (-25.0, -18.0), 1: (2.0, 4.0), 2: (2.0, 8.0), 3: (4.0, 12.0)}
     for cls, (low, high) in bounds.items():
@@ -310,7 +332,6 @@ def _make_trip_log_with_truth(
         # Most units are left on a round figure; the rest are tuned per customer.
         rounded = np.clip(np.round(continuous), low, high)
         setpoint[rows] = np.where(rng.random(rows.sum()) < 0.6, rounded, continuous)
-    setpoint = np.round(setpoint, 1)
 
     doy = day.astype(float) + (hour + minute / 60.0) / 24.0
     season = 9.5 - 7.5 * np.cos(2.0 * np.pi * (doy - 20.0) / 365.0)
@@ -332,33 +353,42 @@ def _make_trip_log_with_truth(
     fuel = np.round(np.maximum(fuel, 1.0), 1)
 
     lin = 0.04 * door + 0.15 * (ambient - 10.0) + 1.2 * distance / 500.0
-    lin = np.where(refrigerated, lin, -4.0)  # dry goods rarely spoil
+    lin = np.where(v["refrigerated"], lin, -4.0)  # dry goods rarely spoil
     spoiled = rng.random(n) < _calibrate(lin, 0.04)
 
-    late_h = np.maximum(0.0, trip_h - (drive_h + breaks_h + stop_h))
+    late_h = np.maximum(0.0, trip_h - v["planned_h"])
     score = 4.2 + rng.normal(0.0, 0.9, n) - 1.8 * spoiled - 0.8 * late_h
     rating = np.clip(np.rint(score), 1, 5).astype(np.int64)
-    no_rating = rng.random(n) < 0.03
+    return {"setpoint": np.round(setpoint, 1), "ambient": ambient, "zero_door": zero_door,
+            "door": door, "fuel": fuel, "spoiled": spoiled, "rating": rating,
+            "no_rating": rng.random(n) < 0.03}
 
+
+def _words(rng: np.random.Generator, n: int, v: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """Free-text remarks, customs references of cross-border trips, and trip ids."""
     has_remark = rng.random(n) < 0.5
     remark = np.full(n, "", dtype=object)
-    remark[has_remark] = _remarks(rng, refrigerated[has_remark], distance[has_remark])
+    remark[has_remark] = _remarks(rng, v["refrigerated"][has_remark], v["distance"][has_remark])
 
-    cross_border = rng.random(n) < _calibrate(1.5 * np.log(distance / 200.0), 0.30)
+    cross_border = rng.random(n) < _calibrate(1.5 * np.log(v["distance"] / 200.0), 0.30)
     hexdigits = np.array(list("0123456789ABCDEF"))[rng.integers(0, 16, (n, 6))]
     customs = _cat("CX-", np.ascontiguousarray(hexdigits).view("<U6").ravel())
     customs = np.where(cross_border, customs, "").astype(object)
 
     trip_id = _cat("RF-26-", np.strings.zfill(np.arange(1, n + 1).astype(str), 6))
+    return {"remark": remark, "customs": customs, "trip_id": trip_id}
 
-    # Blanks, drawn after all true values so the truth does not depend on the masks.
+
+def _blanked(rng: np.random.Generator, n: int, v: dict[str, np.ndarray]) -> pd.DataFrame:
+    """The table as written to CSV: every planted blank, token and code, all ``str``."""
     def mcar(rate: float) -> np.ndarray:
         return rng.random(n) < rate
 
+    fuel, payload = v["fuel"], v["payload"]
     blank_payload = mcar(0.04)
     z_fuel = (fuel - fuel.mean()) / (fuel.std() or 1.0)
     blank_fuel = rng.random(n) < _calibrate(4.0 * z_fuel, 0.15)
-    blank_ambient = rng.random(n) < np.where(night, 0.30, 0.04)
+    blank_ambient = rng.random(n) < np.where(v["night"], 0.30, 0.04)
 
     payload_text = _blank(payload.astype(str), blank_payload)
     open_rows = np.flatnonzero(~blank_payload)
@@ -368,48 +398,50 @@ def _make_trip_log_with_truth(
     tokens = ["n/a"] * n_odd + ["?"] * n_odd + ["not weighed"] * (n_tokens - 2 * n_odd)
     payload_text[token_rows] = tokens
 
-    setpoint_text = _blank(_fmt1(np.nan_to_num(setpoint)), ~refrigerated | mcar(0.01))
-    rating_text = np.where(no_rating, "99", rating.astype(str))
+    setpoint_text = _blank(_fmt1(np.nan_to_num(v["setpoint"])), ~v["refrigerated"] | mcar(0.01))
+    rating_text = np.where(v["no_rating"], "99", v["rating"].astype(str))
 
     columns = {
-        "trip_id": trip_id.astype(object),
-        "depot": _blank(np.array(_DEPOTS)[depot], mcar(0.01)),
-        "departed_at": _blank(_fmt_minutes(departed), mcar(0.015)),
-        "arrived_at": _blank(_fmt_minutes(arrived), mcar(0.02)),
-        "distance_km": _blank(_fmt1(distance), mcar(0.03)),
+        "trip_id": v["trip_id"].astype(object),
+        "depot": _blank(np.array(_DEPOTS)[v["depot"]], mcar(0.01)),
+        "departed_at": _blank(_fmt_minutes(v["departed"]), mcar(0.015)),
+        "arrived_at": _blank(_fmt_minutes(v["arrived"]), mcar(0.02)),
+        "distance_km": _blank(_fmt1(v["distance"]), mcar(0.03)),
         "payload_kg": payload_text,
-        "cargo_class": _blank(np.array(_CLASSES)[cargo], mcar(0.01)),
+        "cargo_class": _blank(np.array(_CLASSES)[v["cargo"]], mcar(0.01)),
         "setpoint_c": setpoint_text,
-        "ambient_c": _blank(_fmt1(ambient), blank_ambient),
-        "door_open_min": _blank(_fmt1(door), zero_door),
+        "ambient_c": _blank(_fmt1(v["ambient"]), blank_ambient),
+        "door_open_min": _blank(_fmt1(v["door"]), v["zero_door"]),
         "fuel_l": _blank(_fmt1(fuel), blank_fuel),
         "driver_rating": rating_text.astype(object),
-        "remark": remark,
-        "customs_ref": customs,
-        "spoiled": _blank(np.where(spoiled, "yes", "no"), mcar(0.005)),
+        "remark": v["remark"],
+        "customs_ref": v["customs"],
+        "spoiled": _blank(np.where(v["spoiled"], "yes", "no"), mcar(0.005)),
     }
-    frame = pd.DataFrame({name: pd.array(columns[name], dtype="str") for name in DEMO_COLUMNS})
+    return pd.DataFrame({name: pd.array(columns[name], dtype="str") for name in DEMO_COLUMNS})
 
-    truth = pd.DataFrame(
+
+def _truth(v: dict[str, np.ndarray]) -> pd.DataFrame:
+    """The true values, typed, before any blank, token or code."""
+    return pd.DataFrame(
         {
-            "trip_id": pd.array(trip_id, dtype="str"),
-            "depot": pd.array(np.array(_DEPOTS)[depot], dtype="str"),
-            "departed_at": departed.astype("datetime64[s]"),
-            "arrived_at": arrived.astype("datetime64[s]"),
-            "distance_km": distance,
-            "payload_kg": payload,
-            "cargo_class": pd.array(np.array(_CLASSES)[cargo], dtype="str"),
-            "setpoint_c": setpoint,
-            "ambient_c": ambient,
-            "door_open_min": door,
-            "fuel_l": fuel,
-            "driver_rating": pd.array(np.where(no_rating, None, rating), dtype="Int64"),
-            "remark": pd.array(remark, dtype="str"),
-            "customs_ref": pd.array(customs, dtype="str"),
-            "spoiled": spoiled,
+            "trip_id": pd.array(v["trip_id"], dtype="str"),
+            "depot": pd.array(np.array(_DEPOTS)[v["depot"]], dtype="str"),
+            "departed_at": v["departed"].astype("datetime64[s]"),
+            "arrived_at": v["arrived"].astype("datetime64[s]"),
+            "distance_km": v["distance"],
+            "payload_kg": v["payload"],
+            "cargo_class": pd.array(np.array(_CLASSES)[v["cargo"]], dtype="str"),
+            "setpoint_c": v["setpoint"],
+            "ambient_c": v["ambient"],
+            "door_open_min": v["door"],
+            "fuel_l": v["fuel"],
+            "driver_rating": pd.array(np.where(v["no_rating"], None, v["rating"]), dtype="Int64"),
+            "remark": pd.array(v["remark"], dtype="str"),
+            "customs_ref": pd.array(v["customs"], dtype="str"),
+            "spoiled": v["spoiled"],
         }
     )
-    return frame, truth
 
 
 def make_trip_log(n_trips: int = 5000, seed: int = DEFAULT_SEED) -> pd.DataFrame:

@@ -16,7 +16,6 @@ to drop are hatched and labelled, and every chart has a legend or direct labels.
 from __future__ import annotations
 
 import io
-import re
 from collections.abc import Collection, Mapping, Sequence
 from contextlib import contextmanager
 
@@ -28,6 +27,22 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.collections import PatchCollection
 from matplotlib.figure import Figure
 from matplotlib.patches import Patch, Rectangle
+
+from imputelab.report.chart_style import (
+    CHOSEN,
+    FILLED,
+    INK,
+    MASK_MARKERS,
+    OBSERVED,
+    OTHER,
+    PALETTE,
+    PAPER,
+    STYLE,
+    WIDTH,
+    fmt_share,
+    inline_svg,
+    pattern_order,
+)
 
 __all__ = [
     "PALETTE",
@@ -41,67 +56,9 @@ __all__ = [
     "predictability_dots",
 ]
 
-# Okabe, M. & Ito, K. (2008). Color Universal Design (CUD): how to make figures and
-# presentations that are friendly to colorblind people. The eight colours, as listed with that
-# citation in R's documentation of the palette (see package, scale_color_okabeito):
-# black #000000, orange #E69F00, sky blue #56B4E9, bluish green #009E73, yellow #F0E442,
-# blue #0072B2, vermillion #D55E00, reddish purple #CC79A7. Yellow is left out: it is too
-# pale on white paper.
-PALETTE = {
-    "black": "#000000",
-    "orange": "#E69F00",
-    "sky": "#56B4E9",
-    "green": "#009E73",
-    "blue": "#0072B2",
-    "vermillion": "#D55E00",
-    "purple": "#CC79A7",
-}
-INK = "#22262e"  # text and axes: near-black, softer than pure black on screen
-RULE = "#d9dbe0"  # grid lines
-PAPER = "#ffffff"  # figures stay white so they print as they look
-OBSERVED = PALETTE["blue"]
-FILLED = PALETTE["vermillion"]
-CHOSEN = PALETTE["orange"]
-OTHER = PALETTE["sky"]
-MASK_MARKERS = ("o", "s", "^", "D", "v", "P")
-
-_STYLE = {
-    "font.family": "sans-serif",
-    "font.sans-serif": ["DejaVu Sans"],  # shipped with matplotlib: the same layout everywhere
-    "font.size": 9.0,
-    "axes.titlesize": 10.5,
-    "axes.titleweight": "bold",
-    "axes.titlelocation": "left",
-    "axes.labelsize": 9.0,
-    "axes.edgecolor": INK,
-    "axes.labelcolor": INK,
-    "axes.linewidth": 0.8,
-    "axes.spines.top": False,
-    "axes.spines.right": False,
-    "axes.grid": False,
-    "grid.color": RULE,
-    "grid.linewidth": 0.6,
-    "xtick.color": INK,
-    "ytick.color": INK,
-    "text.color": INK,
-    "legend.frameon": False,
-    "legend.fontsize": 8.5,
-    "hatch.linewidth": 0.8,
-    "figure.facecolor": PAPER,
-    "axes.facecolor": PAPER,
-    "savefig.facecolor": PAPER,
-    # SVG output: real <text> (searchable, selectable, small) and ids from a fixed salt, so
-    # the same figure gives the same bytes (matplotlib otherwise salts ids with a uuid).
-    "svg.fonttype": "none",
-    "svg.hashsalt": "imputelab-report",
-}
-
-WIDTH = 7.2  # inches: the text width of the report's column
-
-
 @contextmanager
 def _style():
-    with matplotlib.rc_context(_STYLE):
+    with matplotlib.rc_context(STYLE):
         yield
 
 
@@ -129,29 +86,7 @@ def _rows_axes(fig: Figure, ax, names: Sequence[str], *, xlabel: str, ylabel: st
     _legend(fig, handles if handles is not None else ax.get_legend_handles_labels()[0])
 
 
-def _fmt_share(value: float) -> str:
-    return f"{value:.0%}" if value >= 0.1 or value == 0 else f"{value:.1%}"
-
-
 # ------------------------------------------------------------------------- where the holes are
-
-
-def pattern_order(blank: np.ndarray) -> np.ndarray:
-    """Row order that groups equal patterns of blanks, the most frequent pattern first.
-
-    Equal counts put the pattern with fewer blanks first, then keep the first seen first, so
-    the order is fully determined by the matrix.
-    """
-    blank = np.asarray(blank, dtype=bool)
-    if blank.shape[0] == 0:
-        return np.zeros(0, dtype=int)
-    _, first, inverse, counts = np.unique(blank, axis=0, return_index=True,
-                                          return_inverse=True, return_counts=True)
-    inverse = inverse.ravel()
-    blanks = blank[first].sum(axis=1)
-    rank = np.empty(len(counts), dtype=int)
-    rank[np.lexsort([first, blanks, -counts])] = np.arange(len(counts))
-    return np.lexsort([np.arange(blank.shape[0]), rank[inverse]])
 
 
 def missing_map(blank: np.ndarray, columns: Sequence[str], *, total_rows: int | None = None
@@ -228,9 +163,9 @@ def missing_bars(fractions: Mapping[str, float], threshold: float,
             if name in drop:
                 bar.set_hatch("///")
         ax.axvline(threshold, color=INK, linestyle=(0, (4, 3)), linewidth=1.1,
-                   label=f"drop threshold ({_fmt_share(threshold)})")
+                   label=f"drop threshold ({fmt_share(threshold)})")
         for i, (name, value) in enumerate(zip(names, values, strict=True)):
-            label = _fmt_share(value) + ("  drop" if name in drop else "")
+            label = fmt_share(value) + ("  drop" if name in drop else "")
             ax.text(value + 0.01, i, label, va="center", fontsize=8)
         ax.set_xlim(0, 1.12)
         ax.xaxis.set_major_formatter(ticker.PercentFormatter(1.0))
@@ -312,31 +247,44 @@ def method_scores(
             line = ax.axvline(bound, color=INK, linestyle=(0, (1, 2)), linewidth=1.1,
                               label=f"best {'-' if greater_is_better else '+'} {spread}")
             handles.append(line)
-        masks = sorted({k for v in (by_mask or {}).values() for k in v})
-        if len(masks) > 1:
-            for i, mask in enumerate(masks):
-                xs = [(by_mask or {}).get(m, {}).get(mask) for m in names]
-                keep = [k for k, v in enumerate(xs) if v is not None]
-                dots = ax.plot([xs[k] for k in keep], [y[k] for k in keep],
-                               linestyle="none", marker=MASK_MARKERS[i % len(MASK_MARKERS)],
-                               markersize=4.5, markerfacecolor=PAPER, markeredgecolor=INK,
-                               markeredgewidth=0.9, label=f"mean under {mask}")
-                handles.append(dots[0])
-        # Each row's label goes right of everything drawn on that row (bar, error bar, marks).
-        right = values + err
-        for i, name in enumerate(names):
-            marks = [v for v in (by_mask or {}).get(name, {}).values() if v is not None]
-            right[i] = max([right[i], *marks])
-        top = float(np.nanmax(right)) if len(values) else 1.0
-        for i, name in enumerate(names):
-            text = f"{values[i]:.3g}" + ("  chosen" if name == chosen else "")
-            ax.text(right[i] + top * 0.02, i, text, va="center", fontsize=8,
-                    fontweight="bold" if name == chosen else "normal")
-        ax.set_xlim(0, top * 1.28 if top > 0 else 1.0)
+        handles.extend(_mask_marks(ax, names, y, by_mask or {}))
+        _row_labels(ax, names, values, err, by_mask or {}, chosen)
         better = "higher" if greater_is_better else "lower"
         _rows_axes(fig, ax, names, xlabel=f"{metric} ({better} is better)", ylabel="method",
-                   title=f"{column}: {metric} of every method", handles=handles)
+                   title=f"{column}: selection scores ({metric})", handles=handles)
     return fig
+
+
+def _mask_marks(ax, names: Sequence[str], y: np.ndarray,
+                by_mask: Mapping[str, Mapping[str, float]]) -> list:
+    """One marker series per mask (when there are several) at each method's mean under it."""
+    masks = sorted({k for v in by_mask.values() for k in v})
+    handles = []
+    if len(masks) > 1:
+        for i, mask in enumerate(masks):
+            xs = [by_mask.get(m, {}).get(mask) for m in names]
+            keep = [k for k, v in enumerate(xs) if v is not None]
+            dots = ax.plot([xs[k] for k in keep], [y[k] for k in keep],
+                           linestyle="none", marker=MASK_MARKERS[i % len(MASK_MARKERS)],
+                           markersize=4.5, markerfacecolor=PAPER, markeredgecolor=INK,
+                           markeredgewidth=0.9, label=f"mean under {mask}")
+            handles.append(dots[0])
+    return handles
+
+
+def _row_labels(ax, names: Sequence[str], values: np.ndarray, err: np.ndarray,
+                by_mask: Mapping[str, Mapping[str, float]], chosen: str | None) -> None:
+    """Each row's value (and "chosen"), right of all drawn on that row; the x limits to fit."""
+    right = values + err
+    for i, name in enumerate(names):
+        marks = [v for v in by_mask.get(name, {}).values() if v is not None]
+        right[i] = max([right[i], *marks])
+    top = float(np.nanmax(right)) if len(values) else 1.0
+    for i, name in enumerate(names):
+        text = f"{values[i]:.3g}" + ("  chosen" if name == chosen else "")
+        ax.text(right[i] + top * 0.02, i, text, va="center", fontsize=8,
+                fontweight="bold" if name == chosen else "normal")
+    ax.set_xlim(0, top * 1.28 if top > 0 else 1.0)
 
 
 # --------------------------------------------------------------------------- what filling does
@@ -507,10 +455,6 @@ def ratio_bars(groups: Sequence[str], series: Mapping[str, Sequence[float]], *,
     return fig
 
 
-_ID = re.compile(r'\sid="([^"]+)"')
-_REF = re.compile(r'(url\(#|href="#)([^)"]+)')
-
-
 def figure_svg(fig: Figure, *, alt: str, prefix: str) -> str:
     """The figure as SVG text to inline in HTML, the same bytes for the same figure.
 
@@ -529,15 +473,4 @@ def figure_svg(fig: Figure, *, alt: str, prefix: str) -> str:
     buffer = io.StringIO()
     with _style():
         fig.savefig(buffer, format="svg", metadata={"Date": None, "Creator": None})
-    text = buffer.getvalue()
-    text = text[text.index("<svg"):]
-    text = re.sub(r"<metadata>.*?</metadata>\s*", "", text, flags=re.S)
-    text = re.sub(r"<!--.*?-->\s*", "", text, flags=re.S)
-    used = {m.group(2) for m in _REF.finditer(text)}
-    text = _ID.sub(lambda m: f' id="{prefix}-{m.group(1)}"' if m.group(1) in used else "",
-                   text)
-    text = _REF.sub(lambda m: f"{m.group(1)}{prefix}-{m.group(2)}", text)
-    title = (alt.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;"))
-    head_end = text.index(">") + 1
-    return (text[:head_end - 1] + ' role="img">' + f"<title>{title}</title>"
-            + text[head_end:])
+    return inline_svg(buffer.getvalue(), alt=alt, prefix=prefix)

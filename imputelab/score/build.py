@@ -80,7 +80,15 @@ def plan_from_experiment(
             apply_evidence(plan, col, survey.typed[name])
         columns[name] = plan
     return Plan(source=_source(survey, options.survey.target),
-                settings=_settings(options, methods, sample_rows), columns=columns)
+                settings=_settings(options, methods, sample_rows), columns=columns,
+                survey=_table_checks(survey))
+
+
+def _table_checks(survey: Survey) -> dict[str, Any]:
+    """The survey's table-wide checks, stored for the report (which then surveys no more)."""
+    checks = survey.evidence.table_dict() if survey.evidence is not None else {}
+    return {"checks": survey.evidence is not None,
+            **{k: checks[k] for k in ("mcar_test", "co_missing") if k in checks}}
 
 
 def _kept_reason(plan: ColumnPlan, name: str, options: ScoreOptions) -> str:

@@ -9,7 +9,8 @@ A plan is plain data written as versioned JSON that a person can read and edit::
      "columns": {NAME: {"kind", "missing_fraction", "action", "method", "params",
                         "reason", "scores": {METHOD: {METRIC: VALUE}}, "cleaning": {...},
                         "indicator": false, "evidence": {...},
-                        "expected_error": {"metric", "score", "se", "draws"} | null}}}
+                        "expected_error": {"metric", "score", "se", "draws"} | null}},
+     "survey": {"checks", "mcar_test", "co_missing"}}  # table-wide checks, for the report
 
 ``scores`` are *selection* scores: the draws that chose the method. ``expected_error`` is
 the chosen method's score on held-out cells no choice saw (see :mod:`imputelab.score.heldout`).
@@ -121,6 +122,9 @@ class Plan:
     format: str = PLAN_FORMAT
     version: int = PLAN_VERSION
     downstream: dict[str, Any] = field(default_factory=dict)
+    #: The survey's table-wide checks for the report (``checks``, ``mcar_test``, ``co_missing``);
+    #: None in plans made before score stored them.
+    survey: dict[str, Any] | None = None
 
     def ranking_metric(self, kind: str) -> str:
         """The score the choice ranked a column of ``kind`` by.
@@ -143,6 +147,7 @@ class Plan:
             "settings": self.settings,
             "downstream": self.downstream,
             "columns": {name: asdict(col) for name, col in self.columns.items()},
+            **({"survey": self.survey} if self.survey is not None else {}),
         })
 
     def to_json(self) -> str:
@@ -194,7 +199,8 @@ class Plan:
                 raise PlanError(f"{origin}: column '{name}' is to be imputed but has no method")
             columns[name] = col
         return cls(source=dict(data.get("source") or {}), settings=dict(data.get("settings") or {}),
-                   columns=columns, downstream=dict(data.get("downstream") or {}))
+                   columns=columns, downstream=dict(data.get("downstream") or {}),
+                   survey=dict(data["survey"]) if isinstance(data.get("survey"), Mapping) else None)
 
     @classmethod
     def load(cls, path: str | Path, *, option: str | None = None) -> Plan:
