@@ -7,7 +7,8 @@ Every column gets one kind:
 ``categorical``  a modest set of labels
 ``datetime``     timestamps in one recognised format
 ``text``         free text or high-cardinality labels: passed through, never imputed
-``identifier``   unique per row (a trip id): passed through, never imputed
+``identifier``   unique per row and key-shaped (a trip id ``RF-26-000123``, a row number):
+                 passed through, never imputed
 
 :func:`infer_spec` decides a column's :class:`ColumnSpec` (its kind and the cleaning it needs)
 from the raw cells; :func:`clean_column` applies a spec to raw cells, the same way on the file
@@ -83,6 +84,10 @@ _DATE_SAMPLE = 2000
 # Whole numbers at or beyond 2**63 do not fit the Int64 dtype; such columns stay float64.
 _INT64_LIMIT = 2.0**63
 _NUMBER = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$")
+# A key: one token of letters, digits and separators with at least one digit ("TRK-00123",
+# "RF-26-000123", "4f9c2e", "42"). A cell with a space is words, never a key (common practice,
+# no source: codes are written without spaces so they can be typed and joined on).
+_KEY = re.compile(r"^(?=[^\s]*\d)[A-Za-z0-9][A-Za-z0-9_\-./:#@]*$")
 
 
 @dataclass
@@ -466,12 +471,24 @@ def looks_like_row_key(values: np.ndarray) -> bool:
     return bool((np.diff(np.sort(values)) == 1).all()) or len(values) >= 100
 
 
+def _key_shaped(values: pd.Series) -> bool:
+    """Every cell is key-shaped: one token without spaces, holding at least one digit.
+
+    Unique short notes ("late pickup at depot 4") are unique too, but they are words.
+
+    """
+    return bool(values.str.match(_KEY).fillna(False).all())
+
+
 def _label_kind(present: pd.Series, n_rows: int) -> str:
     n_unique = int(present.nunique())
     if n_unique == 2:
         return "binary"
     if n_unique == len(present) == n_rows and n_rows >= 2:
-        return "identifier"
+        if _key_shaped(present):
+            return "identifier"
+        # Unique per row but not keys (short notes, names): free text, passed through.
+        return "text"
     share = n_unique / max(len(present), 1)
     if n_unique > TEXT_MIN_UNIQUE and share > TEXT_UNIQUE_SHARE:
         return "text"
