@@ -580,12 +580,12 @@ def test_user_kind_is_honoured():
 
 
 def test_user_datetime_kind_without_a_readable_format():
-    with pytest.raises(OptionError, match=r"--kind col=datetime: no known date format"):
+    with pytest.raises(OptionError, match=r"`kinds` col=datetime: no known date format"):
         infer_spec(_text(["soon", "later", "never"]), kind="datetime")
 
 
 def test_unknown_kind_is_refused():
-    with pytest.raises(OptionError, match=r"--kind: unknown kind 'number'; choose one of: "):
+    with pytest.raises(OptionError, match=r"`kinds`: unknown kind 'number'; choose one of: "):
         infer_spec(_text(["1", "2"]), kind="number")
     assert "number" not in KINDS
 
