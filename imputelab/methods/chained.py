@@ -29,6 +29,7 @@ from sklearn.exceptions import ConvergenceWarning
 from sklearn.linear_model import BayesianRidge, LogisticRegression
 from sklearn.utils import check_random_state
 
+from imputelab.checks import check_count
 from imputelab.errors import DataError
 from imputelab.executors.seeds import derive_seed
 from imputelab.frame.encoding import derived_from, is_categorical
@@ -209,10 +210,7 @@ class _ChainedFill(FillMethod):
 
     def _fit(self, X: pd.DataFrame, targets: list[str],
              draw: Callable[..., np.ndarray] | None = None) -> None:
-        if isinstance(self.n_sweeps, bool) or not isinstance(self.n_sweeps, int) or (
-                self.n_sweeps < 1):
-            raise ValueError(f"n_sweeps must be a whole number of at least 1, got "
-                             f"{self.n_sweeps!r}")
+        check_count(self.n_sweeps, "n_sweeps")
         counts = {name: int(X[name].isna().sum()) for name in targets}
         self.order_ = sorted(targets, key=lambda n: (counts[n], targets.index(n)))
         self.excluded_ = {n: [n, *derived_from(n, list(X.columns))] for n in targets}
