@@ -109,6 +109,43 @@ def test_identifier():
     assert infer_spec(with_blank).kind != "identifier"
 
 
+def test_unique_short_notes_are_text_not_an_identifier():
+    # Free-text remarks: 2-6 words, every one different. Unique per row, but words, not keys.
+    rng = np.random.default_rng(3)
+    words = ["door", "seal", "checked", "late", "pickup", "at", "depot", "reefer", "alarm",
+             "reset", "driver", "waited", "ramp", "blocked", "pallet", "wrapped", "again"]
+    notes = sorted({" ".join(rng.choice(words, size=rng.integers(2, 7)))
+                    for _ in range(200)})[:60]
+    notes[:2] = ["door seal checked", "late pickup at depot 4"]
+    assert len(set(notes)) == len(notes) == 60
+    assert infer_spec(_text(notes)).kind == "text"
+    # Small tables too: five unique notes are still words.
+    assert infer_spec(_text(notes[:5])).kind == "text"
+    # ... and mostly unique with a few repeats and blanks.
+    assert infer_spec(_text(notes + notes[:5] + ["", ""])).kind == "text"
+
+
+@pytest.mark.parametrize(
+    "cells",
+    [
+        [f"TRK-{i:05d}" for i in range(100, 160)],
+        [f"RF-26-{i:06d}" for i in range(1, 41)],
+        [f"{i * 7919 % 100003:x}a" for i in range(1, 41)],  # hex-like hashes
+        [f"{i}" for i in range(10_000, 10_150)],  # integer keys over 100 rows
+        [f"{i}" for i in range(1, 31)],  # row numbers
+    ],
+    ids=["trk-codes", "trip-codes", "hex", "integer-keys", "row-numbers"],
+)
+def test_key_shaped_unique_columns_stay_identifiers(cells):
+    assert infer_spec(_text(cells)).kind == "identifier"
+
+
+def test_unique_single_words_without_digits_are_not_keys():
+    names = ["alder", "birch", "cedar", "elm", "fir", "hazel", "larch", "maple", "oak",
+             "pine", "rowan", "spruce"]
+    assert infer_spec(_text(names)).kind == "text"
+
+
 def test_text():
     notes = [f"door opened at stop {i}, reefer reset" for i in range(30)]
     raw = _text(notes + ["", "", notes[0]])
@@ -543,12 +580,12 @@ def test_user_kind_is_honoured():
 
 
 def test_user_datetime_kind_without_a_readable_format():
-    with pytest.raises(OptionError, match=r"--kind col=datetime: no known date format"):
+    with pytest.raises(OptionError, match=r"`kinds` col=datetime: no known date format"):
         infer_spec(_text(["soon", "later", "never"]), kind="datetime")
 
 
 def test_unknown_kind_is_refused():
-    with pytest.raises(OptionError, match=r"--kind: unknown kind 'number'; choose one of: "):
+    with pytest.raises(OptionError, match=r"`kinds`: unknown kind 'number'; choose one of: "):
         infer_spec(_text(["1", "2"]), kind="number")
     assert "number" not in KINDS
 

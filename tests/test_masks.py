@@ -101,8 +101,8 @@ def test_get_mask_rejects_unknown_param() -> None:
 @pytest.mark.parametrize(
     ("name", "params", "pattern"),
     [
-        ("mar", {"n_drivers": 0}, r"n_drivers must be a whole number >= 1"),
-        ("mar", {"n_drivers": 1.5}, r"n_drivers must be a whole number >= 1"),
+        ("mar", {"n_drivers": 0}, r"`n_drivers` must be a whole number of at least 1"),
+        ("mar", {"n_drivers": 1.5}, r"`n_drivers` must be a whole number of at least 1"),
         ("mar", {"strength": float("nan")}, r"strength must be a finite number"),
         ("mnar", {"strength": float("inf")}, r"strength must be a finite number"),
     ],
@@ -203,7 +203,7 @@ def test_info_names_drivers(name: str) -> None:
 @pytest.mark.parametrize("rate", [0.0, 1.0, -0.2, 1.5, float("nan"), True, "0.2"])
 def test_rate_validation(name: str, rate: object) -> None:
     X = trip_frame(50)
-    with pytest.raises(OptionError, match=r"--rate must be a number strictly between 0 and 1"):
+    with pytest.raises(OptionError, match=r"`rate` must be a number strictly between 0 and 1"):
         get_mask(name).sample(X, ["temp_c"], rate, np.random.default_rng(0))  # type: ignore[arg-type]
 
 

@@ -292,13 +292,14 @@ def test_registry_params_and_repr() -> None:
 @pytest.mark.parametrize("bad", [0, -3, 2.5, True, "30"])
 def test_bad_min_complete_rows(bad: object) -> None:
     X = two_pattern_frame(n_complete=50)
-    with pytest.raises(OptionError, match=r"min_complete_rows must be a whole number >= 1"):
+    with pytest.raises(OptionError,
+                       match=r"`min_complete_rows` must be a whole number of at least 1"):
         PatternMask(min_complete_rows=bad).sample(X, ["a"], 0.2, np.random.default_rng(0))  # type: ignore[arg-type]
 
 
 def test_rate_checked_by_shared_rule() -> None:
     X = two_pattern_frame(n_complete=50)
-    with pytest.raises(OptionError, match=r"--rate must be a number strictly between 0 and 1"):
+    with pytest.raises(OptionError, match=r"`rate` must be a number strictly between 0 and 1"):
         get_mask("pattern").sample(X, ["a"], 1.0, np.random.default_rng(0))
     with pytest.raises(DataError, match=r"no such column\(s\) in the table: 'c'"):
         get_mask("pattern").sample(X, ["a", "c"], 0.2, np.random.default_rng(0))

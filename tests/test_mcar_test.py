@@ -399,7 +399,7 @@ def test_bad_input_raises_clear_errors() -> None:
         little_mcar_test(np.array([[1.0, np.inf], [2.0, 3.0]]))
     with pytest.raises(DataError, match="no observed value"):
         em_mvn(np.array([[1.0, np.nan], [2.0, np.nan]]))
-    with pytest.raises(OptionError, match="max_iter must be a positive integer"):
+    with pytest.raises(OptionError, match="`max_iter` must be a whole number of at least 1"):
         em_mvn(np.eye(3), max_iter=0)
     with pytest.raises(OptionError, match="tol must be a positive number"):
         little_mcar_test(np.eye(3), tol=-1.0)

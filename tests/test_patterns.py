@@ -251,7 +251,7 @@ def test_top_pairs_on_airquality_are_empty_above_default_threshold(
 
 def test_top_co_missing_refuses_bad_arguments() -> None:
     phi = co_missingness(pd.DataFrame({"a": [True, False], "b": [False, True]}))
-    with pytest.raises(OptionError, match="k must be"):
+    with pytest.raises(OptionError, match="`k` must be"):
         top_co_missing(phi, k=-1)
     with pytest.raises(OptionError, match="min_phi"):
         top_co_missing(phi, min_phi=2.0)

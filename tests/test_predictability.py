@@ -94,9 +94,9 @@ def test_hanley_mcneil_se_is_zero_at_perfect_separation() -> None:
 def test_hanley_mcneil_se_refuses_out_of_range_arguments() -> None:
     with pytest.raises(OptionError, match="auc must be"):
         hanley_mcneil_se(1.2, 10, 10)
-    with pytest.raises(OptionError, match="n_pos must be"):
+    with pytest.raises(OptionError, match="`n_pos` must be"):
         hanley_mcneil_se(0.7, 0, 10)
-    with pytest.raises(OptionError, match="n_neg must be"):
+    with pytest.raises(OptionError, match="`n_neg` must be"):
         hanley_mcneil_se(0.7, 10, 2.5)
 
 

@@ -18,8 +18,8 @@ from when or where it runs.
   middle of a run is replaced and its tasks rerun by Dask's scheduler (up to its
   ``distributed.scheduler.allowed-failures`` times per task); the results are the same.
 
-:func:`open_executor` turns the command line's ``--jobs`` and ``--cluster`` into an executor,
-and closes what it started. Dask is imported only when a cluster is asked for.
+:func:`open_executor` turns the ``n_jobs`` and ``cluster`` settings into an executor, and
+closes what it started. Dask is imported only when a cluster is asked for.
 """
 
 from __future__ import annotations
@@ -35,7 +35,8 @@ from typing import Any, Protocol
 from joblib import Parallel, delayed
 from threadpoolctl import threadpool_limits
 
-from imputelab.errors import OptionError
+from imputelab.checks import check_count
+from imputelab.errors import OptionError, param
 
 __all__ = [
     "CONNECT_TIMEOUT",
@@ -49,7 +50,7 @@ __all__ = [
     "worker_result",
 ]
 
-#: Seconds to wait for a scheduler to answer before ``--cluster ADDRESS`` is an error.
+#: Seconds to wait for a scheduler to answer before a ``cluster`` address is an error.
 CONNECT_TIMEOUT = 10.0
 
 Progress = Callable[[int, int], None]
@@ -152,8 +153,8 @@ def worker_result(future: Any) -> Any:
     try:
         return future.result()
     except ImportError as exc:
-        raise OptionError(f"--cluster: a worker cannot import what the task needs ({exc}); "
-                          "install the same imputelab version on every worker") from None
+        raise OptionError(f"{param('cluster')}: a worker cannot import what the task needs "
+                          f"({exc}); install the same imputelab version on every worker") from None
 
 
 def parse_cluster(text: str) -> tuple[str, int | str]:
@@ -168,15 +169,15 @@ def parse_cluster(text: str) -> tuple[str, int | str]:
     if text.startswith("local:") or text == "local":
         count = text.partition(":")[2]
         if not count.isdigit() or int(count) < 1:
-            raise OptionError(f"--cluster '{text}': local:N needs a number of workers of 1 "
-                              "or more, e.g. local:2")
+            raise OptionError(f"{param('cluster')} '{text}': local:N needs a number of "
+                              "workers of 1 or more, e.g. local:2")
         return "local", int(count)
     scheme, sep, rest = text.rpartition("://")
     host, colon, port = (rest if sep else text).rpartition(":")
     if not colon or not host or not port.isdigit():
-        raise OptionError(f"--cluster '{text}' is not a scheduler address; {_HELP}")
+        raise OptionError(f"{param('cluster')} '{text}' is not a scheduler address; {_HELP}")
     if sep and scheme not in ("tcp", "tls", "ws", "wss", "inproc", "ucx"):
-        raise OptionError(f"--cluster '{text}': unknown protocol '{scheme}://'; {_HELP}")
+        raise OptionError(f"{param('cluster')} '{text}': unknown protocol '{scheme}://'; {_HELP}")
     return "address", text if sep else f"tcp://{text}"
 
 
@@ -210,27 +211,27 @@ def _connect(address: str, timeout: float) -> Any:
         except OSError as exc:
             reason = (f"nothing within {timeout:g} s" if isinstance(exc, TimeoutError)
                       else exc.strerror or type(exc).__name__)
-            raise OptionError(f"--cluster '{address}': no scheduler answered ({reason}); "
+            raise OptionError(f"{param('cluster')} '{address}': no scheduler answered ({reason}); "
                               f"start one (dask scheduler) or check the address, or use "
                               "local:N") from None
     try:
         return Client(address, timeout=timeout)
     except Exception as exc:  # refused, timed out, or something that is no Dask scheduler
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-        raise OptionError(f"--cluster '{address}': could not connect to a Dask scheduler "
-                          f"({first}); check the address, or use local:N") from None
+        raise OptionError(f"{param('cluster')} '{address}': could not connect to a Dask "
+                          f"scheduler ({first}); check the address, or use local:N") from None
 
 
 @contextlib.contextmanager
 def open_executor(jobs: int = 1, cluster: str | None = None, *,
                   timeout: float = CONNECT_TIMEOUT) -> Iterator[Executor]:
-    """The executor for ``--jobs`` and ``--cluster``; what it started is closed at the end.
+    """The executor for ``jobs`` and ``cluster``; what it started is closed at the end.
 
     Parameters
     ----------
     jobs : int
-        Local worker processes (0: one per core). Ignored for the tasks when ``cluster`` is
-        given: the cluster's workers run them.
+        Local worker processes (0: one per core); the ``n_jobs`` setting. Ignored for the
+        tasks when ``cluster`` is given: the cluster's workers run them.
     cluster : str, optional
         ``local:N`` (start N local workers on 127.0.0.1) or a scheduler address such as
         ``tcp://scheduler:8786``.
@@ -246,8 +247,7 @@ def open_executor(jobs: int = 1, cluster: str | None = None, *,
     OptionError
         A bad ``jobs``, or a cluster that is no address or does not answer.
     """
-    if jobs < 0:
-        raise OptionError(f"--jobs must be 0 (all cores) or more, got {jobs}")
+    check_count(jobs, "n_jobs", low=0)
     if cluster is None:
         yield JoblibExecutor(jobs or (os.cpu_count() or 1))
         return
@@ -255,8 +255,8 @@ def open_executor(jobs: int = 1, cluster: str | None = None, *,
     try:
         import distributed  # noqa: F401
     except ImportError:
-        raise OptionError("--cluster needs Dask: pip install 'dask[distributed,dataframe]'"
-                          ) from None
+        raise OptionError(f"{param('cluster')} needs Dask: "
+                          "pip install 'dask[distributed,dataframe]'") from None
     with contextlib.ExitStack() as stack:
         if kind == "local":
             from distributed import Client

@@ -7,7 +7,8 @@ Every column gets one kind:
 ``categorical``  a modest set of labels
 ``datetime``     timestamps in one recognised format
 ``text``         free text or high-cardinality labels: passed through, never imputed
-``identifier``   unique per row (a trip id): passed through, never imputed
+``identifier``   unique per row and key-shaped (a trip id ``RF-26-000123``, a row number):
+                 passed through, never imputed
 
 :func:`infer_spec` decides a column's :class:`ColumnSpec` (its kind and the cleaning it needs)
 from the raw cells; :func:`clean_column` applies a spec to raw cells, the same way on the file
@@ -24,9 +25,20 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from imputelab.errors import DataError, OptionError
+from imputelab.errors import DataError, OptionError, param
+from imputelab.io.column_dates import DATETIME_SHARE, detect_date_format, parse_dates
+from imputelab.io.column_numbers import (
+    _decimals,
+    _fits_int64,
+    _is_text,
+    numeric_codes,
+    observed_numbers,
+    parse_numbers,
+    suspected_codes,
+)
 
 __all__ = [
+    "DATETIME_SHARE",
     "INDICATOR_SUFFIX",
     "blank_mask",
     "new_token_warnings",
@@ -58,7 +70,6 @@ MISSING_TOKENS = frozenset(
 # A column is numeric when at least this share of its non-blank cells parse as numbers
 # (common practice, no source: "a few" stray cells are disguised blanks, many are not).
 NUMERIC_SHARE = 0.9
-DATETIME_SHARE = 0.95
 TEXT_MIN_UNIQUE = 20
 TEXT_UNIQUE_SHARE = 0.5
 # Free text: several words a cell on average and many distinct values (common practice, no
@@ -66,23 +77,10 @@ TEXT_UNIQUE_SHARE = 0.5
 TEXT_MIN_WORDS = 3.0
 TEXT_MIN_UNIQUE_SENTENCES = 50
 
-# Formats tried for datetime columns, most specific first. Day-first and month-first orders are
-# both tried; when both read every value the column is reported as ambiguous.
-_DATE_FORMATS = (
-    "%Y-%m-%dT%H:%M:%S", "%Y-%m-%d %H:%M:%S", "%Y-%m-%dT%H:%M", "%Y-%m-%d %H:%M", "%Y-%m-%d",
-    "%Y/%m/%d %H:%M:%S", "%Y/%m/%d %H:%M", "%Y/%m/%d",
-    "%d/%m/%Y %H:%M:%S", "%d/%m/%Y %H:%M", "%d/%m/%Y",
-    "%m/%d/%Y %H:%M:%S", "%m/%d/%Y %H:%M", "%m/%d/%Y",
-    "%d.%m.%Y %H:%M:%S", "%d.%m.%Y %H:%M", "%d.%m.%Y",
-    "%d-%m-%Y %H:%M:%S", "%d-%m-%Y %H:%M", "%d-%m-%Y",
-)
-_SWAP = {"%d/%m/%Y": "%m/%d/%Y", "%m/%d/%Y": "%d/%m/%Y"}
-# Formats are ranked on at most this many cells spread over the whole column; the full column
-# is read only when the sample leaves a doubt (common practice, no source).
-_DATE_SAMPLE = 2000
-# Whole numbers at or beyond 2**63 do not fit the Int64 dtype; such columns stay float64.
-_INT64_LIMIT = 2.0**63
-_NUMBER = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$")
+# A key: one token of letters, digits and separators with at least one digit ("TRK-00123",
+# "RF-26-000123", "4f9c2e", "42"). A cell with a space is words, never a key (common practice,
+# no source: codes are written without spaces so they can be typed and joined on).
+_KEY = re.compile(r"^(?=[^\s]*\d)[A-Za-z0-9][A-Za-z0-9_\-./:#@]*$")
 
 
 @dataclass
@@ -104,9 +102,9 @@ class ColumnSpec:
     tokens : dict
         Non-blank cells turned into missing values, with their counts.
     missing_codes : list
-        Values confirmed by the user as missing codes (``--missing-code``).
+        Values confirmed by the user as missing codes (the survey's ``missing_codes``).
     kind_source : {"inferred", "user"}
-        Whether the kind was inferred or given with ``--kind``.
+        Whether the kind was inferred or given by the user (the survey's ``kinds``).
     """
 
     kind: str
@@ -127,12 +125,6 @@ class ColumnSpec:
         """Inverse of :meth:`to_dict`; unknown keys are ignored."""
         known = {k: data[k] for k in cls.__dataclass_fields__ if k in data}
         return cls(**known)
-
-
-def _is_text(series: pd.Series) -> bool:
-    return pd.api.types.is_string_dtype(series.dtype) and not isinstance(
-        series.dtype, pd.CategoricalDtype
-    )
 
 
 INDICATOR_SUFFIX = "__was_missing"
@@ -178,198 +170,11 @@ def _blank_mask(values: pd.Series) -> np.ndarray:
     return blank_mask(values) | lowered.isin(MISSING_TOKENS).to_numpy(dtype=bool, na_value=False)
 
 
-def parse_numbers(values: pd.Series, decimal: str = ".") -> pd.Series:
-    """Parse text to floats; cells that are not numbers become NaN.
-
-    Parameters
-    ----------
-    values : Series of str
-    decimal : {".", ","}
-        Decimal mark of the file.
-
-    Examples
-    --------
-    >>> parse_numbers(pd.Series(["1", "2,5", "x"]), decimal=",").tolist()
-    [1.0, 2.5, nan]
-    """
-    text = values.astype("str").str.strip()
-    if decimal == ",":
-        text = text.str.replace(",", ".", regex=False)
-    ok = text.str.match(_NUMBER).fillna(False).to_numpy(bool)
-    out = np.full(len(text), np.nan)
-    if ok.any():
-        out[ok] = pd.to_numeric(text[ok]).to_numpy(float)
-    return pd.Series(out, index=values.index)
-
-
-def _decimals(text: pd.Series) -> int:
-    parts = text.str.extract(r"[.,](\d+)$", expand=False)
-    lengths = parts.str.len().dropna()
-    return int(min(lengths.max(), 6)) if len(lengths) else 0
-
-
 def _tokens(raw: pd.Series, turned_missing: np.ndarray) -> dict[str, int]:
     cells = raw[turned_missing].astype("str").str.strip()
     cells = cells[cells != ""]
     counts = cells.value_counts(sort=False)
     return {str(k): int(v) for k, v in sorted(counts.items(), key=lambda kv: (-kv[1], kv[0]))}
-
-
-def _parse_dates(text: pd.Series, fmt: str) -> pd.Series:
-    return pd.to_datetime(text, format=fmt, errors="coerce")
-
-
-def _detect_date_format(text: pd.Series) -> tuple[str | None, list[str]]:
-    """Pick the format that reads the most of ``text`` (non-blank, stripped cells).
-
-    Formats are ranked on evenly spaced cells, so that a change of writing late in the file is
-    seen. When the winner does not read every cell of the column, each format that reached the
-    threshold on the sample is tried on the whole column and the one reading most wins; ties go
-    to the earlier format in :data:`_DATE_FORMATS`.
-    """
-    n = len(text)
-    if n == 0:
-        return None, []
-    if n <= _DATE_SAMPLE:
-        sample = text
-    else:
-        sample = text.iloc[np.unique(np.linspace(0, n - 1, _DATE_SAMPLE).round().astype(int))]
-    whole = sample is text
-    sample_share = {fmt: float(_parse_dates(sample, fmt).notna().mean()) for fmt in _DATE_FORMATS}
-    best = max(_DATE_FORMATS, key=sample_share.get)  # first of the ties: formats are in order
-    if sample_share[best] < DATETIME_SHARE:
-        return None, []
-    full_share: dict[str, float] = {}
-
-    def share_of(fmt: str) -> float:
-        if whole:
-            return sample_share[fmt]
-        if fmt not in full_share:
-            full_share[fmt] = float(_parse_dates(text, fmt).notna().mean())
-        return full_share[fmt]
-
-    if share_of(best) < 1.0:
-        candidates = [fmt for fmt in _DATE_FORMATS if sample_share[fmt] >= DATETIME_SHARE]
-        best = max(candidates, key=share_of)
-    best_share = share_of(best)
-    if best_share < DATETIME_SHARE:
-        return None, []
-    # Day-first and month-first readings that both read every cell the chosen one reads: the
-    # file cannot tell them apart, so the other is reported rather than dropped silently. A
-    # sample cell that only the chosen one reads already settles it.
-    ambiguous = []
-    for left, right in _SWAP.items():
-        if best.startswith(left):
-            alt = best.replace(left, right)
-            if sample_share[alt] >= sample_share[best] and share_of(alt) >= best_share:
-                ambiguous.append(alt)
-    return best, ambiguous
-
-
-def _fits_int64(values: np.ndarray) -> bool:
-    return bool(np.all(np.abs(values) < _INT64_LIMIT))
-
-
-def suspected_codes(values: np.ndarray) -> list[float]:
-    """Numbers that look like missing-value codes.
-
-    A value is suspected when it sits at an extreme of the column, repeats, is written with
-    nines only (9, 99, -999, ...) or is a negative code in an otherwise non-negative column,
-    and lies far outside the rest of the values (beyond 1.5 interquartile ranges, Tukey's fences).
-
-    Parameters
-    ----------
-    values : ndarray of float
-        Observed (non-NaN) values.
-
-    Examples
-    --------
-    >>> suspected_codes(np.array([1, 2, 3, 4, 5, 3, 2, 99, 99, 99], dtype=float))
-    [99.0]
-    """
-    values = values[np.isfinite(values)]
-    if len(values) < 10:
-        return []
-    found = []
-    for extreme in (values.min(), values.max()):
-        if extreme in found:
-            continue
-        count = int((values == extreme).sum())
-        if count < 2 or count > 0.5 * len(values):
-            continue
-        rest = values[values != extreme]
-        if len(rest) < 5:
-            continue
-        digits = str(int(abs(extreme))) if float(extreme).is_integer() else ""
-        nines = digits != "" and set(digits) == {"9"}
-        negative_code = extreme < 0 and rest.min() >= 0 and (nines or digits == "1")
-        if not (nines or negative_code):
-            continue
-        q1, q3 = np.percentile(rest, [25, 75])
-        fence = 1.5 * max(q3 - q1, 1e-12)
-        # ... and apart from the others: a 9 at the top of a 1-9 scale is a rating, not a code
-        gap = float(np.min(np.abs(rest - extreme)))
-        spread = float(rest.max() - rest.min())
-        apart = gap > 0.5 * spread
-        if (extreme > q3 + fence or extreme < q1 - fence) and apart or negative_code:
-            found.append(float(extreme))
-    return sorted(found)
-
-
-def numeric_codes(codes: list[Any]) -> list[float]:
-    """The missing codes that are numbers, as floats (``"99"``, ``99`` and ``99.0`` alike).
-
-    Examples
-    --------
-    >>> numeric_codes([99, "-9", "XX", 1.5])
-    [99.0, -9.0, 1.5]
-    """
-    out = []
-    for code in codes:
-        if isinstance(code, bool):
-            continue
-        if isinstance(code, int | float | np.integer | np.floating):
-            out.append(float(code))
-        elif isinstance(code, str) and _NUMBER.match(code.strip()):
-            out.append(float(code.strip()))
-    return out
-
-
-def observed_numbers(values: pd.Series, decimal: str = ".") -> np.ndarray | None:
-    """The finite numbers of a cleaned column, or None when some present cell is not a number.
-
-    Works on what :func:`clean_column` returns for numeric columns and for binary or
-    categorical columns whose labels are numbers (a 0/1 flag read from text), so that
-    :func:`suspected_codes` can look at both.
-
-    Parameters
-    ----------
-    values : Series
-        A cleaned column: missing cells are NA.
-    decimal : str
-        Decimal mark of the file, for labels read from text.
-
-    Examples
-    --------
-    >>> observed_numbers(pd.Series(["1", None, "99"], dtype="str")).tolist()
-    [1.0, 99.0]
-    >>> observed_numbers(pd.Series(["yes", "no"], dtype="str")) is None
-    True
-    """
-    present = values.dropna()
-    if pd.api.types.is_bool_dtype(present.dtype) or pd.api.types.is_datetime64_any_dtype(
-        present.dtype
-    ):
-        return None
-    if pd.api.types.is_numeric_dtype(present.dtype):
-        numbers = present.to_numpy(float, na_value=np.nan)
-    elif _is_text(present):
-        numbers = parse_numbers(present, decimal).to_numpy(float)
-        if np.isnan(numbers).any():
-            return None
-    else:
-        return None
-    return numbers[np.isfinite(numbers)]
 
 
 def infer_spec(
@@ -389,55 +194,24 @@ def infer_spec(
     decimal : str
         Decimal mark of the file.
     kind : str, optional
-        Kind given by the user (``--kind``); inference then only fills in the details.
+        Kind given by the user (the survey's ``kinds``); inference then only fills in the
+        details.
     date_format : str, optional
-        Format given by the user (``--date-format``).
+        Format given by the user (the survey's ``date_formats``).
     missing_codes : list, optional
-        Values confirmed as missing codes (``--missing-code``).
+        Values confirmed as missing codes (the survey's ``missing_codes``).
 
     Returns
     -------
     ColumnSpec
     """
     if kind is not None and kind not in KINDS:
-        raise OptionError(f"--kind: unknown kind '{kind}'; choose one of: {', '.join(KINDS)}")
+        raise OptionError(f"{param('kinds')}: unknown kind '{kind}'; "
+                          f"choose one of: {', '.join(KINDS)}")
     spec = ColumnSpec(kind="categorical", missing_codes=list(missing_codes or []),
                       kind_source="user" if kind else "inferred")
     if _is_text(raw):
-        blank = _blank_mask(raw)
-        present = raw[~blank].str.strip()
-        numbers = parse_numbers(present, decimal)
-        share = float(numbers.notna().mean()) if len(present) else 0.0
-        if kind == "numeric" or (kind is None and len(present) and share >= NUMERIC_SHARE):
-            spec.kind = "numeric"
-        elif kind == "datetime" or (kind is None and date_format is None and len(present)):
-            fmt, ambiguous = (date_format, []) if date_format else _detect_date_format(present)
-            if fmt is not None:
-                spec.kind, spec.date_format, spec.ambiguous_formats = "datetime", fmt, ambiguous
-            elif kind == "datetime":
-                raise OptionError(
-                    f"--kind {raw.name}=datetime: no known date format reads this column; "
-                    "give one with --date-format COLUMN=FORMAT"
-                )
-        elif date_format is not None:
-            spec.kind, spec.date_format = "datetime", date_format
-        if spec.kind == "numeric":
-            good = numbers.notna()
-            whole = numbers[good].to_numpy()
-            spec.integer = (
-                bool(good.any())
-                and bool(np.all(np.mod(whole, 1) == 0))
-                and _fits_int64(whole)
-                and not present[good].str.contains(r"[.,]", regex=True).any()
-            )
-            spec.decimals = 0 if spec.integer else _decimals(present[good])
-            if (kind is None and spec.integer and not spec.missing_codes
-                    and int(good.sum()) == len(raw) and looks_like_row_key(whole)):
-                spec.kind = "identifier"
-        if kind is None and spec.kind == "categorical":
-            # Confirmed codes are not labels: "yes", "no" and a code make a binary column.
-            labels = present[~_code_mask(present, spec.missing_codes, False, decimal)]
-            spec.kind = _label_kind(labels, n_rows=len(raw))
+        _infer_from_text(raw, spec, decimal=decimal, kind=kind, date_format=date_format)
     else:
         spec.kind = kind or _typed_kind(raw)
         if spec.kind == "numeric" and pd.api.types.is_numeric_dtype(raw.dtype):
@@ -458,6 +232,44 @@ def infer_spec(
     return spec
 
 
+def _infer_from_text(raw: pd.Series, spec: ColumnSpec, *, decimal: str, kind: str | None,
+                     date_format: str | None) -> None:
+    """Set ``spec``'s kind and number or date details from a column of text cells."""
+    present = raw[~_blank_mask(raw)].str.strip()
+    numbers = parse_numbers(present, decimal)
+    share = float(numbers.notna().mean()) if len(present) else 0.0
+    if kind == "numeric" or (kind is None and len(present) and share >= NUMERIC_SHARE):
+        spec.kind = "numeric"
+    elif kind == "datetime" or (kind is None and date_format is None and len(present)):
+        fmt, ambiguous = (date_format, []) if date_format else detect_date_format(present)
+        if fmt is not None:
+            spec.kind, spec.date_format, spec.ambiguous_formats = "datetime", fmt, ambiguous
+        elif kind == "datetime":
+            raise OptionError(
+                f"{param('kinds')} {raw.name}=datetime: no known date format reads this "
+                f"column; give one with {param('date_formats')} (COLUMN=FORMAT)"
+            )
+    elif date_format is not None:
+        spec.kind, spec.date_format = "datetime", date_format
+    if spec.kind == "numeric":
+        good = numbers.notna()
+        whole = numbers[good].to_numpy()
+        spec.integer = (
+            bool(good.any())
+            and bool(np.all(np.mod(whole, 1) == 0))
+            and _fits_int64(whole)
+            and not present[good].str.contains(r"[.,]", regex=True).any()
+        )
+        spec.decimals = 0 if spec.integer else _decimals(present[good])
+        if (kind is None and spec.integer and not spec.missing_codes
+                and int(good.sum()) == len(raw) and looks_like_row_key(whole)):
+            spec.kind = "identifier"
+    if kind is None and spec.kind == "categorical":
+        # Confirmed codes are not labels: "yes", "no" and a code make a binary column.
+        labels = present[~_code_mask(present, spec.missing_codes, False, decimal)]
+        spec.kind = _label_kind(labels, n_rows=len(raw))
+
+
 def looks_like_row_key(values: np.ndarray) -> bool:
     """Whole numbers that number the rows: unique and gap-free (1, 2, 3, ...), or unique over
     at least 100 rows (parcel or account numbers). Common practice, no source."""
@@ -466,12 +278,24 @@ def looks_like_row_key(values: np.ndarray) -> bool:
     return bool((np.diff(np.sort(values)) == 1).all()) or len(values) >= 100
 
 
+def _key_shaped(values: pd.Series) -> bool:
+    """Every cell is key-shaped: one token without spaces, holding at least one digit.
+
+    Unique short notes ("late pickup at depot 4") are unique too, but they are words.
+
+    """
+    return bool(values.str.match(_KEY).fillna(False).all())
+
+
 def _label_kind(present: pd.Series, n_rows: int) -> str:
     n_unique = int(present.nunique())
     if n_unique == 2:
         return "binary"
     if n_unique == len(present) == n_rows and n_rows >= 2:
-        return "identifier"
+        if _key_shaped(present):
+            return "identifier"
+        # Unique per row but not keys (short notes, names): free text, passed through.
+        return "text"
     share = n_unique / max(len(present), 1)
     if n_unique > TEXT_MIN_UNIQUE and share > TEXT_UNIQUE_SHARE:
         return "text"
@@ -571,7 +395,7 @@ def clean_column(
         return values, _tokens(raw, missing & ~codes) if text else {}
     if spec.kind == "datetime":
         if text:
-            values = _parse_dates(raw.where(~blank, "").str.strip(), spec.date_format or "ISO8601")
+            values = parse_dates(raw.where(~blank, "").str.strip(), spec.date_format or "ISO8601")
         else:
             values = pd.to_datetime(raw, errors="coerce")
         missing = values.isna().to_numpy(bool)

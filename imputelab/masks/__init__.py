@@ -1,7 +1,8 @@
 """Masks: ways to hide observed cells so imputation can be scored against the truth.
 
-To add a mask, write a small :class:`~imputelab.masks.base.Mask` subclass with a unique
-``name`` and add one line to :data:`MASKS`.
+Takes a working frame, a rate and a seed, and gives the cells to hide (a boolean frame of
+observed cells only) by MCAR, MAR, MNAR or the file's own row patterns of blanks; the
+registry :data:`MASKS` maps each name to its :class:`~imputelab.masks.base.Mask` subclass.
 """
 
 from __future__ import annotations

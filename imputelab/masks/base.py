@@ -18,6 +18,7 @@ import inspect
 import math
 import numbers
 from collections.abc import Sequence
+from dataclasses import dataclass
 from typing import Any, ClassVar
 
 import numpy as np
@@ -25,10 +26,12 @@ import pandas as pd
 from scipy.optimize import brentq
 from scipy.special import logit
 
+from imputelab.checks import check_share
 from imputelab.errors import DataError, OptionError
 
 __all__ = [
     "MIN_OBSERVED",
+    "ColumnDraw",
     "Mask",
     "calibrate_intercept",
     "check_strength",
@@ -182,12 +185,34 @@ def standardized_effect(series: pd.Series, rng: np.random.Generator) -> np.ndarr
     return z
 
 
+@dataclass(frozen=True, eq=False)
+class ColumnDraw:
+    """What :meth:`Mask._pick` gets for one column: where to choose, how many, and how.
+
+    Attributes
+    ----------
+    observed : ndarray of int
+        Row positions of the column's observed cells.
+    k : int
+        How many of them to hide (:func:`hidden_count`).
+    rate : float
+        The requested rate.
+    rng : numpy.random.Generator
+        Source of randomness.
+    """
+
+    observed: np.ndarray
+    k: int
+    rate: float
+    rng: np.random.Generator
+
+
 class Mask(abc.ABC):
     """Chooses which observed cells of a working frame to hide.
 
-    Subclasses store their parameters in ``__init__`` and implement :meth:`_pick`;
-    :meth:`sample` validates the request, counts the cells to hide and assembles the
-    result. ``sample`` never changes the instance.
+    Subclasses store their parameters in ``__init__`` and implement :meth:`_pick` (or
+    :meth:`_hide`, for whole rows at once); :meth:`sample` validates the request, counts the
+    cells to hide and assembles the result. ``sample`` never changes the instance.
     """
 
     name: ClassVar[str]
@@ -235,34 +260,34 @@ class Mask(abc.ABC):
         """
         cols = _check_request(X, columns, rate, rng)
         self._check_params()
+        return self._hide(X, cols, float(rate), rng, info)
+
+    def _hide(self, X: pd.DataFrame, cols: list[str], rate: float, rng: np.random.Generator,
+              info: dict[str, list[str]] | None) -> np.ndarray:
+        """The mask of :meth:`sample` once the request is checked: one column at a time.
+
+        A mask that hides whole rows at once (``pattern``) overrides this instead of
+        :meth:`_pick`.
+        """
         hidden = np.zeros((len(X), len(cols)), dtype=bool)
         for j, col in enumerate(cols):
             observed = np.flatnonzero(X[col].notna().to_numpy())
             k = hidden_count(observed.size, rate)
             drivers: list[str] = []
             if k > 0:
-                rows, drivers = self._pick(X, col, observed, k, rate, rng)
+                rows, drivers = self._pick(X, col, ColumnDraw(observed, k, rate, rng))
                 hidden[rows, j] = True
             if info is not None:
                 info[col] = drivers
         return hidden
 
-    def _pick(
-        self,
-        X: pd.DataFrame,
-        column: str,
-        observed: np.ndarray,
-        k: int,
-        rate: float,
-        rng: np.random.Generator,
-    ) -> tuple[np.ndarray, list[str]]:
-        """Choose ``k`` rows among ``observed`` (row positions) to hide in ``column``.
+    def _pick(self, X: pd.DataFrame, column: str, draw: ColumnDraw) -> tuple[np.ndarray, list[str]]:
+        """Choose ``draw.k`` rows among ``draw.observed`` to hide in ``column``.
 
-        Returns the chosen row positions (a subset of ``observed``) and the names of
-        the columns whose values drove the choice. A mask that chooses whole rows at once
-        (``pattern``) overrides :meth:`sample` instead.
+        Returns the chosen row positions (a subset of ``draw.observed``) and the names of
+        the columns whose values drove the choice.
         """
-        raise NotImplementedError(f"{type(self).__name__} must implement _pick or sample")
+        raise NotImplementedError(f"{type(self).__name__} must implement _pick or _hide")
 
     def _check_params(self) -> None:
         """Raise OptionError if a stored parameter is out of range (none by default)."""
@@ -282,17 +307,15 @@ class Mask(abc.ABC):
         return f"{type(self).__name__}({args})"
 
 
-def pick_by_score(
-    score: np.ndarray, observed: np.ndarray, k: int, rate: float, rng: np.random.Generator
-) -> np.ndarray:
-    """Calibrate ``sigmoid(a + score)`` to ``rate`` and draw ``k`` observed rows by it.
+def pick_by_score(score: np.ndarray, draw: ColumnDraw) -> np.ndarray:
+    """Calibrate ``sigmoid(a + score)`` to ``draw.rate`` and draw ``draw.k`` rows by it.
 
-    ``score`` holds one finite logit score per entry of ``observed``.
+    ``score`` holds one finite logit score per entry of ``draw.observed``.
     """
-    x = calibrate_intercept(score, rate) + score
+    x = calibrate_intercept(score, draw.rate) + score
     # log(sigmoid(x)) = -softplus(-x), written out so it cannot overflow.
     log_p = -(np.maximum(-x, 0.0) + np.log1p(np.exp(-np.abs(x))))
-    return observed[weighted_choice(log_p, k, rng)]
+    return draw.observed[weighted_choice(log_p, draw.k, draw.rng)]
 
 
 def check_strength(mask: Mask, strength: float) -> None:
@@ -314,8 +337,7 @@ def _check_request(
         raise TypeError("columns must be a sequence of column names, not a single string")
     if not isinstance(rng, np.random.Generator):
         raise TypeError(f"rng must be a numpy.random.Generator, got {type(rng).__name__}")
-    if isinstance(rate, bool) or not isinstance(rate, numbers.Real) or not 0.0 < float(rate) < 1.0:
-        raise OptionError(f"--rate must be a number strictly between 0 and 1, got {rate!r}")
+    check_share(rate, "rate")
     cols = list(columns)
     missing = [c for c in cols if c not in X.columns]
     if missing:

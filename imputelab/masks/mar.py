@@ -2,14 +2,19 @@
 
 from __future__ import annotations
 
-import numbers
 from typing import ClassVar
 
 import numpy as np
 import pandas as pd
 
-from imputelab.errors import OptionError
-from imputelab.masks.base import Mask, check_strength, pick_by_score, standardized_effect
+from imputelab.checks import check_count
+from imputelab.masks.base import (
+    ColumnDraw,
+    Mask,
+    check_strength,
+    pick_by_score,
+    standardized_effect,
+)
 
 __all__ = ["MARMask"]
 
@@ -47,25 +52,16 @@ class MARMask(Mask):
 
     def _check_params(self) -> None:
         check_strength(self, self.strength)
-        n = self.n_drivers
-        if isinstance(n, bool) or not isinstance(n, numbers.Integral) or n < 1:
-            raise OptionError(f"mask 'mar': n_drivers must be a whole number >= 1, got {n!r}")
+        check_count(self.n_drivers, "n_drivers")
 
-    def _pick(
-        self,
-        X: pd.DataFrame,
-        column: str,
-        observed: np.ndarray,
-        k: int,
-        rate: float,
-        rng: np.random.Generator,
-    ) -> tuple[np.ndarray, list[str]]:
+    def _pick(self, X: pd.DataFrame, column: str, draw: ColumnDraw) -> tuple[np.ndarray, list[str]]:
         candidates = [c for c in X.columns if c != column]
         n = min(int(self.n_drivers), len(candidates))
+        rng = draw.rng
         chosen = rng.choice(len(candidates), size=n, replace=False) if n else []
         drivers = [candidates[i] for i in chosen]
         signs = rng.choice(np.array([-1.0, 1.0]), size=n)
-        score = np.zeros(observed.size, dtype=float)
+        score = np.zeros(draw.observed.size, dtype=float)
         for sign, driver in zip(signs, drivers, strict=True):
-            score += sign * standardized_effect(X[driver], rng)[observed]
-        return pick_by_score(self.strength * score, observed, k, rate, rng), drivers
+            score += sign * standardized_effect(X[driver], rng)[draw.observed]
+        return pick_by_score(self.strength * score, draw), drivers

@@ -7,7 +7,7 @@ from typing import ClassVar
 import numpy as np
 import pandas as pd
 
-from imputelab.masks.base import Mask
+from imputelab.masks.base import ColumnDraw, Mask
 
 __all__ = ["MCARMask"]
 
@@ -24,13 +24,5 @@ class MCARMask(Mask):
     def __init__(self) -> None:
         pass
 
-    def _pick(
-        self,
-        X: pd.DataFrame,
-        column: str,
-        observed: np.ndarray,
-        k: int,
-        rate: float,
-        rng: np.random.Generator,
-    ) -> tuple[np.ndarray, list[str]]:
-        return rng.choice(observed, size=k, replace=False), []
+    def _pick(self, X: pd.DataFrame, column: str, draw: ColumnDraw) -> tuple[np.ndarray, list[str]]:
+        return draw.rng.choice(draw.observed, size=draw.k, replace=False), []

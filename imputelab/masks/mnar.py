@@ -7,7 +7,13 @@ from typing import ClassVar
 import numpy as np
 import pandas as pd
 
-from imputelab.masks.base import Mask, check_strength, pick_by_score, standardized_effect
+from imputelab.masks.base import (
+    ColumnDraw,
+    Mask,
+    check_strength,
+    pick_by_score,
+    standardized_effect,
+)
 
 __all__ = ["MNARMask"]
 
@@ -40,14 +46,6 @@ class MNARMask(Mask):
     def _check_params(self) -> None:
         check_strength(self, self.strength)
 
-    def _pick(
-        self,
-        X: pd.DataFrame,
-        column: str,
-        observed: np.ndarray,
-        k: int,
-        rate: float,
-        rng: np.random.Generator,
-    ) -> tuple[np.ndarray, list[str]]:
-        z = standardized_effect(X[column], rng)[observed]
-        return pick_by_score(self.strength * z, observed, k, rate, rng), [column]
+    def _pick(self, X: pd.DataFrame, column: str, draw: ColumnDraw) -> tuple[np.ndarray, list[str]]:
+        z = standardized_effect(X[column], draw.rng)[draw.observed]
+        return pick_by_score(self.strength * z, draw), [column]

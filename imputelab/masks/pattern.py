@@ -3,15 +3,14 @@
 from __future__ import annotations
 
 import math
-import numbers
-from collections.abc import Sequence
 from typing import ClassVar
 
 import numpy as np
 import pandas as pd
 
-from imputelab.errors import DataError, OptionError
-from imputelab.masks.base import MIN_OBSERVED, Mask, _check_request, hidden_count
+from imputelab.checks import check_count
+from imputelab.errors import DataError
+from imputelab.masks.base import MIN_OBSERVED, Mask, hidden_count
 
 __all__ = ["PatternMask"]
 
@@ -64,41 +63,16 @@ class PatternMask(Mask):
         self.min_complete_rows = min_complete_rows
 
     def _check_params(self) -> None:
-        n = self.min_complete_rows
-        if isinstance(n, bool) or not isinstance(n, numbers.Integral) or n < 1:
-            raise OptionError(
-                f"mask 'pattern': min_complete_rows must be a whole number >= 1, got {n!r}"
-            )
+        check_count(self.min_complete_rows, "min_complete_rows")
 
-    def sample(
-        self,
-        X: pd.DataFrame,
-        columns: Sequence[str],
-        rate: float,
-        rng: np.random.Generator,
-        info: dict[str, list[str]] | None = None,
-    ) -> np.ndarray:
-        """Choose the cells to hide by replaying the table's row patterns.
+    def _hide(self, X: pd.DataFrame, cols: list[str], rate: float, rng: np.random.Generator,
+              info: dict[str, list[str]] | None) -> np.ndarray:
+        """Replay the table's row patterns (see the class notes; ``rate`` is a share of rows).
 
-        Parameters are those of :meth:`Mask.sample`, except that ``rate`` is the share
-        of recipient rows that receive a pattern (see the class notes). ``info`` gets
-        ``[]`` for every column: which cells are hidden does not depend on values.
-
-        Returns
-        -------
-        ndarray of bool, shape (len(X), len(columns))
-            True where a cell is to be hidden; only observed cells are ever True.
-
-        Raises
-        ------
-        OptionError
-            If ``rate`` or ``min_complete_rows`` is out of range.
-        DataError
-            If a column is not in ``X`` or not uniquely named there, or ``columns`` have
-            no missing cell at all, so there is no pattern to replay.
+        ``info`` gets ``[]`` for every column: which cells are hidden does not depend on
+        values. Raises :class:`~imputelab.errors.DataError` when ``cols`` have no missing
+        cell at all, so there is no pattern to replay.
         """
-        cols = _check_request(X, columns, rate, rng)
-        self._check_params()
         holes = X[cols].isna().to_numpy()
         incomplete = holes.any(axis=1)
         donors = np.flatnonzero(incomplete)

@@ -1,7 +1,10 @@
 """Fill methods and their registry.
 
-Adding a method: write one :class:`FillMethod` subclass in this package and add one line to
-:data:`METHODS`; the contract test in ``tests/test_methods_contract.py`` picks it up.
+Takes a working frame with holes and the columns to fill, and gives the same frame with those
+holes filled (observed cells, shape, index and dtypes untouched), from simple constants and
+column statistics to nearest neighbours and chained equations; each
+:class:`~imputelab.methods.base.FillMethod` is fitted once and replays on new rows, and
+:data:`METHODS` maps the names used in plans to the classes.
 """
 
 from __future__ import annotations

@@ -9,7 +9,7 @@ in which only the missing cells of those columns have changed.
 from __future__ import annotations
 
 import abc
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from typing import Any, ClassVar
 
 import numpy as np
@@ -98,9 +98,7 @@ class FillMethod(BaseEstimator, abc.ABC):
         DataFrame
             A copy of ``X``; observed cells are unchanged.
         """
-        check_is_fitted(self, "targets_")
-        self._check_columns(X)
-        return self._keep_observed(X, self._transform(X))
+        return self._replay(X, self._transform)
 
     def fit_transform(self, X: pd.DataFrame, targets: Sequence[str] | None = None) -> pd.DataFrame:
         """Fit on ``X`` and fill it."""
@@ -126,6 +124,13 @@ class FillMethod(BaseEstimator, abc.ABC):
                 raise DataError(f"column '{name}': {reason}")
         self.targets_ = targets
         self.feature_names_in_ = np.asarray(X.columns, dtype=object)
+
+    def _replay(self, X: pd.DataFrame,
+                fill: Callable[[pd.DataFrame], pd.DataFrame]) -> pd.DataFrame:
+        """``fill(X)`` by the fitted method, with every observed cell of ``X`` kept."""
+        check_is_fitted(self, "targets_")
+        self._check_columns(X)
+        return self._keep_observed(X, fill(X))
 
     def _check_columns(self, X: pd.DataFrame) -> None:
         missing = [c for c in self.feature_names_in_ if c not in X.columns]

@@ -28,8 +28,8 @@ import pandas as pd
 from sklearn.exceptions import ConvergenceWarning
 from sklearn.linear_model import BayesianRidge, LogisticRegression
 from sklearn.utils import check_random_state
-from sklearn.utils.validation import check_is_fitted
 
+from imputelab.checks import check_count
 from imputelab.errors import DataError
 from imputelab.executors.seeds import derive_seed
 from imputelab.frame.encoding import derived_from, is_categorical
@@ -210,10 +210,7 @@ class _ChainedFill(FillMethod):
 
     def _fit(self, X: pd.DataFrame, targets: list[str],
              draw: Callable[..., np.ndarray] | None = None) -> None:
-        if isinstance(self.n_sweeps, bool) or not isinstance(self.n_sweeps, int) or (
-                self.n_sweeps < 1):
-            raise ValueError(f"n_sweeps must be a whole number of at least 1, got "
-                             f"{self.n_sweeps!r}")
+        check_count(self.n_sweeps, "n_sweeps")
         counts = {name: int(X[name].isna().sum()) for name in targets}
         self.order_ = sorted(targets, key=lambda n: (counts[n], targets.index(n)))
         self.excluded_ = {n: [n, *derived_from(n, list(X.columns))] for n in targets}
@@ -258,14 +255,9 @@ class _ChainedFill(FillMethod):
     def transform_with(self, X: pd.DataFrame, draw: Callable[..., np.ndarray]) -> pd.DataFrame:
         """Replay the fitted chain on ``X`` with ``draw`` in place of every prediction.
 
-        Returns
-        -------
-        DataFrame
-            A copy of ``X``; observed cells are unchanged.
+        Returns a copy of ``X`` whose observed cells are unchanged, as :meth:`transform`.
         """
-        check_is_fitted(self, "targets_")
-        self._check_columns(X)
-        return self._keep_observed(X, self._run(X, fitting=False, draw=draw))
+        return self._replay(X, lambda frame: self._run(frame, fitting=False, draw=draw))
 
     def fit_transform_with(self, X: pd.DataFrame, targets: Any,
                            draw: Callable[..., np.ndarray]) -> pd.DataFrame:
@@ -369,14 +361,13 @@ class ChainedForestFill(_ChainedFill):
         self.max_rows = max_rows
 
     def _model(self, categorical: bool, seed: int, n_rows: int) -> Any:
-        params = dict(
+        return _lightgbm(
+            categorical, seed,
             boosting_type="rf", n_estimators=self.n_trees, num_leaves=self.num_leaves,
             min_child_samples=self.min_child_samples,
             subsample=min(0.632, self.max_rows / max(n_rows, 1)), subsample_freq=1,
             feature_fraction_bynode=self.feature_share, reg_lambda=0.0,
-            deterministic=True, force_row_wise=True, n_jobs=1, verbose=-1, random_state=seed,
         )
-        return lgb.LGBMClassifier(**params) if categorical else lgb.LGBMRegressor(**params)
 
 
 class ChainedBoostedFill(_ChainedFill):
@@ -416,13 +407,12 @@ class ChainedBoostedFill(_ChainedFill):
         self.holdout = holdout
 
     def _model(self, categorical: bool, seed: int, n_rows: int) -> Any:
-        params = dict(
+        return _lightgbm(
+            categorical, seed,
             n_estimators=self.max_trees, learning_rate=self.learning_rate,
             num_leaves=self.num_leaves, min_child_samples=self.min_child_samples,
             subsample=0.8, subsample_freq=1, colsample_bytree=0.8, reg_lambda=1.0,
-            deterministic=True, force_row_wise=True, n_jobs=1, verbose=-1, random_state=seed,
         )
-        return lgb.LGBMClassifier(**params) if categorical else lgb.LGBMRegressor(**params)
 
     def _fit_model(self, model: Any, features: Any, target: np.ndarray, seed: int) -> Any:
         n = len(target)
@@ -443,3 +433,10 @@ class ChainedBoostedFill(_ChainedFill):
             callbacks=[lgb.early_stopping(20, verbose=False)],
         )
         return model
+
+
+def _lightgbm(categorical: bool, seed: int, **params: Any) -> Any:
+    """A LightGBM classifier or regressor for one column: deterministic, one thread, quiet."""
+    params.update(deterministic=True, force_row_wise=True, n_jobs=1, verbose=-1,
+                  random_state=seed)
+    return lgb.LGBMClassifier(**params) if categorical else lgb.LGBMRegressor(**params)

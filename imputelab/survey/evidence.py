@@ -21,9 +21,8 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from joblib import Parallel, delayed
-from threadpoolctl import threadpool_limits
 
+from imputelab.executors.pool import Executor, JoblibExecutor
 from imputelab.frame.encoding import Encoding, derived_from, with_derived
 from imputelab.io.columns import IMPUTABLE_KINDS, ColumnSpec
 from imputelab.survey.diagnostics import (
@@ -80,7 +79,7 @@ class Evidence:
         return rules[0].unexplained if rules else missing
 
     def column_dict(self, name: str) -> dict[str, Any]:
-        """The per-column part of ``survey --json``."""
+        """The per-column part of the survey's JSON output."""
         check = self.missingness.get(name)
         hint = self.zero_hints.get(name)
         return {
@@ -90,7 +89,7 @@ class Evidence:
         }
 
     def table_dict(self) -> dict[str, Any]:
-        """The table-wide part of ``survey --json``."""
+        """The table-wide part of the survey's JSON output."""
         return {
             "mcar_test": self.mcar_test.to_dict(),
             "patterns": self.patterns.to_dict(),
@@ -103,11 +102,11 @@ class Evidence:
 PREDICTABILITY_ROWS = 5000
 
 
-def _predictability_task(features: pd.DataFrame, missing: np.ndarray,
+def _predictability_task(features: pd.DataFrame, drop: list[str], missing: np.ndarray,
                          seed: int) -> MissingnessCheck:
-    with threadpool_limits(limits=1):
-        return missingness_predictability(features, missing, random_state=seed,
-                                          max_rows=PREDICTABILITY_ROWS)
+    """One column's check: ``features`` is shared by every task, less the column's own."""
+    return missingness_predictability(features.drop(columns=drop), missing, random_state=seed,
+                                      max_rows=PREDICTABILITY_ROWS)
 
 
 def gather_evidence(
@@ -117,6 +116,7 @@ def gather_evidence(
     seed: int = 0,
     n_jobs: int = 1,
     target: str | None = None,
+    executor: Executor | None = None,
 ) -> Evidence:
     """Run every diagnostic on a typed table.
 
@@ -129,11 +129,16 @@ def gather_evidence(
     seed : int, default 0
         Seed of the cross-validated classifiers.
     n_jobs : int, default 1
-        Columns checked in parallel (joblib).
+        Columns checked in parallel in local processes (joblib), when no ``executor`` is
+        given.
     target : str, optional
         The column a later model predicts. It may show that blanks depend on the outcome
         (a predictability driver), but never makes a blank structural: a rule on the target
         would fill a feature by its value.
+    executor : Executor, optional
+        Where the per-column predictability checks run (:mod:`imputelab.executors.pool`:
+        this process, local processes or a Dask cluster); by default ``n_jobs`` local
+        processes. The evidence does not depend on it: each check's seed is ``seed``.
 
     Returns
     -------
@@ -152,22 +157,25 @@ def gather_evidence(
     structural = find_structural_rules(typed[rest], {n: kinds[n] for n in rest})
     zero_hints = blank_means_zero(typed, kinds)
 
-    missingness: dict[str, MissingnessCheck] = {}
-    holed = [n for n in usable if blanks[n].any()]
-    if holed and len(usable) > 1:
-        encoding = Encoding.fit(typed, {n: kinds[n] for n in usable})
-        features = with_derived(encoding.encode(typed), encoding.kinds)
-        jobs = []
-        for name in holed:
-            drop = [name, *derived_from(name, list(features.columns))]
-            jobs.append(delayed(_predictability_task)(
-                features.drop(columns=drop), blanks[name].to_numpy(), seed))
-        checks = Parallel(n_jobs=n_jobs)(jobs) if n_jobs != 1 else [
-            job[0](*job[1], **job[2]) for job in jobs]
-        missingness = {name: _named(check, usable) for name, check in zip(holed, checks,
-                                                                          strict=True)}
+    missingness = _predictability(typed, kinds, usable, blanks, seed=seed,
+                                  executor=executor or JoblibExecutor(n_jobs))
     return Evidence(mcar_test=mcar, patterns=patterns, co_missing=co_missing,
                     missingness=missingness, structural=structural, zero_hints=zero_hints)
+
+
+def _predictability(typed: pd.DataFrame, kinds: Mapping[str, str], usable: list[str],
+                    blanks: pd.DataFrame, *, seed: int,
+                    executor: Executor) -> dict[str, MissingnessCheck]:
+    """Every column with blanks checked against the others, one task a column."""
+    holed = [n for n in usable if blanks[n].any()]
+    if not holed or len(usable) < 2:
+        return {}
+    encoding = Encoding.fit(typed, {n: kinds[n] for n in usable})
+    features = with_derived(encoding.encode(typed), encoding.kinds)
+    tasks = [([name, *derived_from(name, list(features.columns))], blanks[name].to_numpy(),
+              seed) for name in holed]
+    checks = executor.map(_predictability_task, features, tasks)
+    return {name: _named(check, usable) for name, check in zip(holed, checks, strict=True)}
 
 
 def _named(check: MissingnessCheck, columns: list[str]) -> MissingnessCheck:

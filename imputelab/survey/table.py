@@ -9,7 +9,9 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from imputelab.errors import DataError, OptionError
+from imputelab.checks import check_count, check_seed, check_share
+from imputelab.errors import DataError, param
+from imputelab.executors.pool import Executor
 from imputelab.io.columns import (
     IMPUTABLE_KINDS,
     ColumnSpec,
@@ -30,13 +32,18 @@ __all__ = ["ColumnSurvey", "Survey", "SurveyOptions", "check_columns", "survey_t
 DEFAULT_DROP_THRESHOLD = 0.5  # common practice, no source
 
 
-def check_columns(names: Sequence[str], columns: Sequence[str], option: str) -> None:
-    """Raise a :class:`DataError` naming ``option`` when a name is not a column."""
+def check_columns(names: Sequence[str], columns: Sequence[str], parameter: str) -> None:
+    """Raise a :class:`DataError` naming ``parameter`` when a name is not a column.
+
+    ``parameter`` is the name of the setting that named the columns (``"kinds"``); the
+    message marks it with :func:`imputelab.errors.param`.
+    """
     known = set(columns)
     for name in names:
         if name not in known:
             shown = ", ".join(list(columns)[:20]) + (", ..." if len(columns) > 20 else "")
-            raise DataError(f"{option}: column '{name}' not found; columns are: {shown}")
+            raise DataError(f"{param(parameter)}: column '{name}' not found; "
+                            f"columns are: {shown}")
 
 
 @dataclass
@@ -46,11 +53,11 @@ class SurveyOptions:
     Attributes
     ----------
     kinds : dict
-        ``--kind COLUMN=KIND`` overrides.
+        Kind overrides, column to kind.
     missing_codes : dict
-        ``--missing-code COLUMN=VALUE`` confirmed codes, a list per column.
+        Confirmed missing codes, a list per column.
     date_formats : dict
-        ``--date-format COLUMN=FORMAT``.
+        ``strptime`` formats, column to format.
     drop_threshold : float
         Columns missing more than this share are flagged for dropping.
     target : str, optional
@@ -60,9 +67,15 @@ class SurveyOptions:
         test, the pattern table, the predictability of every column's blanks, structural
         rules. Off, the survey is only kinds, counts, tokens and codes.
     n_jobs : int
-        Columns checked in parallel by the diagnostics.
+        Columns checked in parallel by the diagnostics, in local processes, when no
+        ``executor`` is given.
     seed : int
         Seed of the diagnostics' classifiers.
+    executor : Executor, optional
+        Where the diagnostics' per-column checks run (:mod:`imputelab.executors.pool`: this
+        process, local processes or a Dask cluster, as the ``n_jobs`` and ``cluster``
+        settings give it); by default ``n_jobs`` local processes. The survey does not
+        depend on it. Not compared and not shown: it says where, not what.
     """
 
     kinds: dict[str, str] = field(default_factory=dict)
@@ -73,18 +86,18 @@ class SurveyOptions:
     diagnostics: bool = True
     n_jobs: int = 1
     seed: int = 0
+    executor: Executor | None = field(default=None, compare=False, repr=False)
 
     def validate(self, columns: Sequence[str]) -> None:
         """Check every named column exists and values are in range."""
-        check_columns(self.kinds, columns, "--kind")
-        check_columns(self.missing_codes, columns, "--missing-code")
-        check_columns(self.date_formats, columns, "--date-format")
+        check_columns(self.kinds, columns, "kinds")
+        check_columns(self.missing_codes, columns, "missing_codes")
+        check_columns(self.date_formats, columns, "date_formats")
         if self.target is not None:
-            check_columns([self.target], columns, "--target")
-        if not 0.0 <= self.drop_threshold <= 1.0:
-            raise OptionError(
-                f"--drop-threshold must be between 0 and 1, got {self.drop_threshold}"
-            )
+            check_columns([self.target], columns, "target")
+        check_share(self.drop_threshold, "drop_threshold", closed=True)
+        check_count(self.n_jobs, "n_jobs")
+        check_seed(self.seed)
 
 
 @dataclass
@@ -101,7 +114,7 @@ class ColumnSurvey:
     evidence: dict[str, Any] = field(default_factory=dict)
 
     def to_dict(self) -> dict[str, Any]:
-        """JSON-ready dict (the keys of ``survey --json``)."""
+        """JSON-ready dict (the keys of the survey's JSON output)."""
         return {**self._basics(), **self.evidence}
 
     def _basics(self) -> dict[str, Any]:
@@ -145,7 +158,7 @@ class Survey:
         return {name: col.spec for name, col in self.columns.items()}
 
     def to_dict(self) -> dict[str, Any]:
-        """JSON-ready dict (``survey --json``)."""
+        """JSON-ready dict (the survey's JSON output)."""
         out: dict[str, Any] = {
             "file": str(self.table.path),
             "rows": self.rows,
@@ -202,55 +215,69 @@ def survey_table(table: Table, options: SurveyOptions | None = None) -> Survey:
         )
         values, _ = clean_column(raw, spec, decimal=table.decimal)
         typed[name] = values
-        notes = []
-        if spec.kind in ("text", "identifier"):
-            missing = int(blank_mask(raw).sum())
-            notes.append("passed through")
-        else:
-            missing = int(values.isna().sum())
-        codes: list[float] = []
-        observed = (observed_numbers(values, decimal=table.decimal)
-                    if spec.kind in ("numeric", "binary") else None)
-        if observed is not None:
-            confirmed = set(numeric_codes(spec.missing_codes))
-            codes = [c for c in suspected_codes(observed) if c not in confirmed]
-            for code in codes:
-                count = int(np.sum(observed == code))
-                notes.append(f"{_plain(code)} x{count} at the edge of the range: a code? "
-                             f"--missing-code {name}={_plain(code)}")
-        if spec.ambiguous_formats:
-            notes.append(
-                f"dates read as {spec.date_format} but {', '.join(spec.ambiguous_formats)} also "
-                f"fits every value; set it with --date-format {name}=FORMAT"
-            )
-        fraction = missing / n if n else 0.0
-        if missing == n:
-            notes.append("every cell is missing")
-        elif spec.kind in IMPUTABLE_KINDS and values.dropna().nunique() == 1:
-            notes.append("a single distinct value: methods that need variance are skipped")
-        if spec.missing_codes:
-            notes.append(f"missing codes: {', '.join(str(_plain(c)) for c in spec.missing_codes)}")
-            absent = _absent_codes(raw, spec, table.decimal)
-            if absent:
-                notes.append(f"--missing-code {', '.join(str(_plain(c)) for c in absent)} "
-                             "not found in this column")
-        if spec.kind in ("text", "categorical") and spec.kind_source == "inferred":
-            share = _number_share(raw, table.decimal)
-            if share >= 0.5:
-                notes.append(f"{share:.0%} of its cells are numbers; if it is numeric, say "
-                             f"--kind {name}=numeric")
-        drop = fraction > options.drop_threshold and name != options.target
-        columns[name] = ColumnSurvey(name, spec, missing, fraction, codes, drop, notes)
+        columns[name] = _column_survey(name, raw, values, spec, table.decimal, options)
     typed_frame = pd.DataFrame(typed, index=frame.index)
     evidence = None
     if options.diagnostics:
         evidence = gather_evidence(typed_frame, {n: c.spec for n, c in columns.items()},
                                    seed=options.seed, n_jobs=options.n_jobs,
-                                   target=options.target)
+                                   target=options.target, executor=options.executor)
         for col in columns.values():
             _add_evidence(col, evidence, n, options)
     return Survey(table=table, options=options, columns=columns, typed=typed_frame,
                   evidence=evidence)
+
+
+def _column_survey(name: str, raw: pd.Series, values: pd.Series, spec: ColumnSpec,
+                   decimal: str, options: SurveyOptions) -> ColumnSurvey:
+    """One column's counts, suspected codes, drop flag and notes."""
+    n = len(raw)
+    notes = []
+    if spec.kind in ("text", "identifier"):
+        missing = int(blank_mask(raw).sum())
+        notes.append("passed through")
+    else:
+        missing = int(values.isna().sum())
+    codes: list[float] = []
+    observed = (observed_numbers(values, decimal=decimal)
+                if spec.kind in ("numeric", "binary") else None)
+    if observed is not None:
+        confirmed = set(numeric_codes(spec.missing_codes))
+        codes = [c for c in suspected_codes(observed) if c not in confirmed]
+        for code in codes:
+            count = int(np.sum(observed == code))
+            notes.append(f"{_plain(code)} x{count} at the edge of the range: a code? "
+                         f"{param('missing_codes')} {name}={_plain(code)}")
+    if spec.ambiguous_formats:
+        notes.append(
+            f"dates read as {spec.date_format} but {', '.join(spec.ambiguous_formats)} also "
+            f"fits every value; set it with {param('date_formats')} {name}=FORMAT"
+        )
+    fraction = missing / n if n else 0.0
+    if missing == n:
+        notes.append("every cell is missing")
+    elif spec.kind in IMPUTABLE_KINDS and values.dropna().nunique() == 1:
+        notes.append("a single distinct value: methods that need variance are skipped")
+    notes.extend(_code_notes(raw, spec, decimal))
+    if spec.kind in ("text", "categorical") and spec.kind_source == "inferred":
+        share = _number_share(raw, decimal)
+        if share >= 0.5:
+            notes.append(f"{share:.0%} of its cells are numbers; if it is numeric, say "
+                         f"{param('kinds')} {name}=numeric")
+    drop = fraction > options.drop_threshold and name != options.target
+    return ColumnSurvey(name, spec, missing, fraction, codes, drop, notes)
+
+
+def _code_notes(raw: pd.Series, spec: ColumnSpec, decimal: str) -> list[str]:
+    """The confirmed codes, and those of them the column does not hold."""
+    if not spec.missing_codes:
+        return []
+    notes = [f"missing codes: {', '.join(str(_plain(c)) for c in spec.missing_codes)}"]
+    absent = _absent_codes(raw, spec, decimal)
+    if absent:
+        notes.append(f"{param('missing_codes')} {', '.join(str(_plain(c)) for c in absent)} "
+                     "not found in this column")
+    return notes
 
 
 def _add_evidence(col: ColumnSurvey, evidence: Evidence, n: int, options: SurveyOptions) -> None:

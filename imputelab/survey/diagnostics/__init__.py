@@ -1,9 +1,10 @@
 """Diagnostics of missing cells: what the blanks of a table say about how they arose.
 
-* :mod:`~imputelab.survey.diagnostics.mcar_test`: Little's (1988) MCAR test with EM estimates.
-* :mod:`~imputelab.survey.diagnostics.predictability`: can the other columns predict a blank.
-* :mod:`~imputelab.survey.diagnostics.patterns`: the pattern table and pairwise co-missingness.
-* :mod:`~imputelab.survey.diagnostics.structural`: blanks that are not missing values.
+Takes plain frames or arrays (the survey's typed frame and column kinds, never survey
+objects) and gives frozen results with ``to_dict()``: Little's MCAR test on EM estimates
+(``mcar_test``, ``em``), the pattern table and co-missingness (``patterns``), how well the
+other columns predict each column's blanks (``predictability``), and blanks that are not
+missing values, with the value they stand for (``structural``, ``structural_rules``).
 """
 
 from __future__ import annotations

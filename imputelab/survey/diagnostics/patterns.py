@@ -15,6 +15,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from imputelab.checks import check_count
 from imputelab.errors import DataError, OptionError
 
 __all__ = ["PatternTable", "co_missingness", "missing_patterns", "top_co_missing"]
@@ -118,12 +119,8 @@ def missing_patterns(missing: pd.DataFrame, *, max_patterns: int | None = None) 
     OptionError
         ``max_patterns`` is not a whole number of at least 1.
     """
-    if max_patterns is not None and (
-        isinstance(max_patterns, bool) or not isinstance(max_patterns, numbers.Integral)
-        or max_patterns < 1
-    ):
-        raise OptionError(f"max_patterns must be a whole number of at least 1, got "
-                          f"{max_patterns!r}")
+    if max_patterns is not None:
+        check_count(max_patterns, "max_patterns")
     bits = _indicators(missing)
     n_rows, n_cols = bits.shape
     if n_rows == 0:
@@ -217,8 +214,7 @@ def top_co_missing(phi: pd.DataFrame, k: int = 5, min_phi: float = 0.3) -> list[
     OptionError
         ``k`` is negative or ``min_phi`` is not a number in [-1, 1].
     """
-    if isinstance(k, bool) or not isinstance(k, numbers.Integral) or k < 0:
-        raise OptionError(f"k must be a whole number of at least 0, got {k!r}")
+    check_count(k, "k", low=0)
     if (isinstance(min_phi, bool) or not isinstance(min_phi, numbers.Real)
             or not -1.0 <= min_phi <= 1.0):
         raise OptionError(f"min_phi must be a number between -1 and 1, got {min_phi!r}")

@@ -28,6 +28,7 @@ from lightgbm import LGBMClassifier
 from sklearn.metrics import roc_auc_score
 from sklearn.model_selection import StratifiedKFold
 
+from imputelab.checks import check_count, check_seed
 from imputelab.errors import DataError, OptionError
 
 __all__ = [
@@ -111,9 +112,8 @@ def hanley_mcneil_se(auc: float, n_pos: int, n_neg: int) -> float:
     """
     if isinstance(auc, bool) or not isinstance(auc, numbers.Real) or not 0.0 <= auc <= 1.0:
         raise OptionError(f"auc must be a number between 0 and 1, got {auc!r}")
-    for name, value in (("n_pos", n_pos), ("n_neg", n_neg)):
-        if isinstance(value, bool) or not isinstance(value, numbers.Integral) or value < 1:
-            raise OptionError(f"{name} must be a whole number of at least 1, got {value!r}")
+    check_count(n_pos, "n_pos")
+    check_count(n_neg, "n_neg")
     a = float(auc)
     q1 = a / (2.0 - a)
     q2 = 2.0 * a * a / (1.0 + a)
@@ -176,12 +176,6 @@ class _OutOfFold:
     scores: np.ndarray  # out-of-fold probability of a blank, for ``rows``
     gain: np.ndarray  # total gain per feature, averaged over folds
     names: list[str]  # the feature names, in ``gain`` order
-
-
-def _check_int(name: str, value: Any, low: int) -> int:
-    if isinstance(value, bool) or not isinstance(value, numbers.Integral) or value < low:
-        raise OptionError(f"{name} must be a whole number of at least {low}, got {value!r}")
-    return int(value)
 
 
 def _as_missing(missing: Any, n_rows: int) -> np.ndarray:
@@ -339,12 +333,11 @@ def missingness_predictability(
     OptionError
         An option is out of range.
     """
-    n_splits = _check_int("n_splits", n_splits, 2)
-    min_missing = _check_int("min_missing", min_missing, 1)
-    max_rows = _check_int("max_rows", max_rows, 2 * n_splits)
-    n_drivers = _check_int("n_drivers", n_drivers, 0)
-    if isinstance(random_state, bool) or not isinstance(random_state, numbers.Integral):
-        raise OptionError(f"random_state must be a whole number, got {random_state!r}")
+    n_splits = check_count(n_splits, "n_splits", low=2)
+    min_missing = check_count(min_missing, "min_missing")
+    max_rows = check_count(max_rows, "max_rows", low=2 * n_splits)
+    n_drivers = check_count(n_drivers, "n_drivers", low=0)
+    random_state = check_seed(random_state, "random_state")
     if not isinstance(features, pd.DataFrame):
         raise DataError(f"features must be a pandas DataFrame, got {type(features).__name__}")
     n_rows = features.shape[0]
@@ -357,6 +350,11 @@ def missingness_predictability(
 
     oof = _out_of_fold(features, y, n_splits=n_splits, random_state=int(random_state),
                        max_rows=max_rows)
+    return _verdict(oof, n_drivers, n_missing, n_rows)
+
+
+def _verdict(oof: _OutOfFold, n_drivers: int, n_missing: int, n_rows: int) -> MissingnessCheck:
+    """The AUC of the out-of-fold scores, its interval, and what they say."""
     auc = float(roc_auc_score(oof.y, oof.scores))
     n_pos = int(oof.y.sum())
     se = hanley_mcneil_se(auc, n_pos, len(oof.y) - n_pos)
