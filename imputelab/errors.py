@@ -12,7 +12,7 @@ The tree::
 
 The core names parameters, never command-line flags: a message marks a parameter with
 :func:`param` (it reads `` `n_jobs` `` in Python) and the command line shows each marked name
-as its flag (``--jobs``). The command line turns each error into one line on stderr and exit
+as its flag (``cli/_flags.py``). The command line turns each error into one line on stderr and exit
 code 2. Any other exception is a bug.
 """
 

@@ -14,7 +14,7 @@ from imputelab.errors import param, param_names
 
 PACKAGE = Path(imputelab.__file__).parent
 # A flag in text: "--name" not preceded by a word character or by "var(" (CSS custom properties).
-FLAG = re.compile(r"(?<![\w(])--[a-z][a-z-]+")
+FLAG = re.compile(r"(?<![\w(])--[a-z][a-z-]*(?![a-z-]|:)")  # not CSS custom properties
 MARKED = re.compile(r"""param\(\s*["']([a-z0-9_]+)["']\s*\)""")
 
 

@@ -11,9 +11,18 @@ from typing import Annotated
 import typer
 
 from imputelab.bench.runner import PLAN, BenchOptions, plain_data, run_bench, write_bench
-from imputelab.cli._common import err, handle_errors, out, parse_list, print_json, progress_bar
-from imputelab.cli._options import JobsOpt, JsonOpt, QuietOpt
+from imputelab.cli._common import (
+    err,
+    handle_errors,
+    out,
+    parse_list,
+    print_json,
+    progress_bar,
+)
+from imputelab.cli._flags import as_flags
+from imputelab.cli._options import ClusterOpt, JobsOpt, JsonOpt, QuietOpt
 from imputelab.errors import OptionError
+from imputelab.executors.pool import open_executor
 
 
 @handle_errors
@@ -36,6 +45,7 @@ def bench(
     = None,
     seed: Annotated[int, typer.Option(help="Seed of every draw.")] = 0,
     jobs: JobsOpt = 0,
+    cluster: ClusterOpt = None,
     json: JsonOpt = False,
     quiet: QuietOpt = False,
 ) -> None:
@@ -56,12 +66,14 @@ def bench(
 
     def note(line: str) -> None:
         if not quiet and not json:
-            err.print(line, highlight=False)
+            err.print(as_flags(line), highlight=False, markup=False)
 
-    with progress_bar("benchmark", quiet=quiet) as update:
+    with open_executor(jobs, cluster) as executor, \
+            progress_bar("benchmark", quiet=quiet) as update:
         # Results so far are written after each dataset, so a long run leaves them behind.
         results = run_bench(options, progress=lambda stage, done, total: update(done, total),
-                            note=note, done=lambda part: write_bench(part, out_dir, command))
+                            note=note, done=lambda part: write_bench(part, out_dir, command),
+                            executor=executor)
     paths = write_bench(results, out_dir, command)
     if json:
         print_json(plain_data(results))

@@ -18,6 +18,7 @@ from imputelab.cli._common import (
     print_json,
     progress_bar,
 )
+from imputelab.cli._flags import as_flags
 from imputelab.cli._options import (
     ClusterOpt,
     FileArg,
@@ -47,7 +48,7 @@ def plan_rich_table(plan: Plan) -> RichTable:
     table.add_column("method")
     table.add_column("why", overflow="fold", ratio=1)
     for name, col in plan.columns.items():
-        table.add_row(name, col.action, col.method or "", col.reason)
+        table.add_row(name, col.action, col.method or "", as_flags(col.reason))
     return table
 
 

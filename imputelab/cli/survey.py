@@ -2,12 +2,22 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
 from typing import Any
 
 from rich.table import Table as RichTable
 
 from imputelab.cli._common import handle_errors, out, print_json, progress_bar
-from imputelab.cli._options import FileArg, JsonOpt, QuietOpt, reading_options, survey_options
+from imputelab.cli._flags import as_flags
+from imputelab.cli._options import (
+    ClusterOpt,
+    FileArg,
+    JsonOpt,
+    QuietOpt,
+    reading_options,
+    survey_options,
+)
+from imputelab.executors.pool import open_executor
 from imputelab.io.tables import read_table
 from imputelab.survey.diagnostics import CAUTION
 from imputelab.survey.table import Survey, survey_table
@@ -30,7 +40,8 @@ def survey_rich_table(survey: Survey) -> RichTable:
         tokens += [f"code {_plain(c)}" for c in col.spec.missing_codes]
         table.add_row(name, col.spec.kind, str(col.missing), f"{col.missing_fraction:.1%}",
                       ", ".join(tokens), "DROP" if col.drop else "",
-                      _predictability(col.evidence.get("missingness")), "; ".join(col.notes))
+                      _predictability(col.evidence.get("missingness")),
+                      as_flags("; ".join(col.notes)))
     return table
 
 
@@ -83,6 +94,7 @@ def evidence_lines(survey: Survey, shown: int = 6) -> list[str]:
 @reading_options
 def survey(
     file: FileArg,
+    cluster: ClusterOpt = None,
     json: JsonOpt = False,
     quiet: QuietOpt = False,
     **reading: Any,
@@ -91,8 +103,9 @@ def survey(
     options = survey_options(**reading)
     drop_threshold, target = options.drop_threshold, options.target
     table = read_table(file)
-    with progress_bar("surveying", quiet=quiet or json):  # the checks fit classifiers
-        result = survey_table(table, options)
+    with open_executor(reading["jobs"], cluster) as executor, \
+            progress_bar("surveying", quiet=quiet or json):  # the checks fit classifiers
+        result = survey_table(table, replace(options, executor=executor))
     if json:
         print_json(result.to_dict())
     elif not quiet:

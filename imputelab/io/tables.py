@@ -25,7 +25,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from imputelab.errors import DataError, TableIOError
+from imputelab.errors import DataError, TableIOError, param
 
 __all__ = ["FORMATS", "Table", "atomic_dir", "atomic_path", "check_file", "file_fingerprint",
            "read_table", "table_format", "write_table"]
@@ -136,7 +136,7 @@ def read_table(path: str | os.PathLike[str], *, option: str = "FILE") -> Table:
     ['1', '']
     """
     path = Path(path)
-    fmt = table_format(path, option=option)
+    fmt = table_format(path, option=option or param("out"))
     check_file(path, option)
     try:
         fingerprint = file_fingerprint(path)
@@ -377,7 +377,7 @@ def write_table(
     path: str | os.PathLike[str],
     *,
     delimiter: str = ",",
-    option: str = "--out",
+    option: str | None = None,
 ) -> Path:
     """Write a frame as CSV or Parquet (by extension), atomically.
 
@@ -389,7 +389,7 @@ def write_table(
         The written file.
     """
     path = Path(path)
-    fmt = table_format(path, option=option)
+    fmt = table_format(path, option=option or param("out"))
     with atomic_path(path) as tmp:
         if fmt == "csv":
             with codecs.open(tmp, "w", encoding="utf-8") as handle:

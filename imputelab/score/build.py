@@ -229,6 +229,9 @@ def score_table(
     """
     options = options or ScoreOptions()
     options.validate()
+    if executor is not None and options.survey.executor is None:
+        # The survey's per-column checks run where the experiment runs (e.g. on a cluster).
+        options = replace(options, survey=replace(options.survey, executor=executor))
     survey = survey_table(table, options.survey)
     target = options.survey.target
     actions = {name: default_action(col.spec.kind, drop=col.drop, is_target=name == target)
