@@ -605,3 +605,31 @@ def test_plan_reasons_carry_each_columns_verdict(trip_log_plan: Path) -> None:
         carried += 1
     assert carried >= 5
     assert plan["version"] == 2
+
+
+def test_the_survey_checks_run_through_the_given_executor() -> None:
+    from imputelab.executors.pool import JoblibExecutor, SerialExecutor
+    from imputelab.io.tables import Table
+    from imputelab.survey.table import survey_table
+
+    class Counting(SerialExecutor):
+        tasks = 0
+
+        def map(self, fn, shared, tasks, progress=None):  # type: ignore[override]
+            Counting.tasks += len(tasks)
+            yield from super().map(fn, shared, tasks, progress)
+
+    rng = np.random.default_rng(8)
+    x, y, w = rng.normal(size=(3, 400))
+    x[rng.random(400) < 0.2] = np.nan  # MCAR
+    y[rng.random(400) < 1 / (1 + np.exp(1.5 - 2 * w))] = np.nan  # MAR on w
+    frame = pd.DataFrame({"x": x, "y": y, "w": w}).astype(str).replace("nan", "")
+    table = Table(frame.astype("str"), Path("built.csv"), "csv")
+    default = survey_table(table, SurveyOptions()).to_dict()
+    counted = survey_table(table, SurveyOptions(executor=Counting())).to_dict()
+    two = survey_table(table, SurveyOptions(executor=JoblibExecutor(2))).to_dict()
+    assert Counting.tasks == 2  # one check per column with blanks
+    assert counted == default == two
+    # the mechanisms this test built: y's blanks follow w, x's follow nothing
+    assert default["columns"]["y"]["missingness"]["verdict"] == DEPENDS
+    assert default["columns"]["x"]["missingness"]["verdict"] == NO_DEPENDENCE
