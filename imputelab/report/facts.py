@@ -118,6 +118,7 @@ def survey_options_for(plan: Plan, given: SurveyOptions | None = None, *,
         diagnostics=given.diagnostics,
         n_jobs=given.n_jobs,
         seed=int(settings.get("seed", given.seed)),
+        executor=given.executor,
     )
 
 
