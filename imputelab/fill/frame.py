@@ -10,7 +10,7 @@ from typing import Any
 import pandas as pd
 from threadpoolctl import threadpool_limits
 
-from imputelab.errors import DataError, ImputelabError, PlanError, param
+from imputelab.errors import DataError, ImputelabError, OptionError, PlanError, param
 from imputelab.executors.seeds import derive_seed
 from imputelab.fill.structural import apply_structural
 from imputelab.fill.text import render_text
@@ -257,11 +257,12 @@ def _guarded(group: _Group, work: Any) -> Any:
     """Run a group's fit or fill; a failure under edited params is the plan's fault."""
     try:
         return work()
-    except ImputelabError:
+    except PlanError:
         raise
     except Exception as exc:
-        if not group.edited:
-            raise  # default settings failing is a bug, not bad input
+        if not group.edited or (isinstance(exc, ImputelabError)
+                                and not isinstance(exc, OptionError)):
+            raise  # default settings failing is a bug (or the data's fault), not the plan's
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
         raise PlanError(
             f"plan: column '{group.columns[0]}': {group.method_name} failed with params "

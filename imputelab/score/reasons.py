@@ -85,7 +85,9 @@ def structural_value(kind: str, values: pd.Series, spec: Any) -> tuple[float | s
     if low - width <= 0.0 <= high + width:
         where = "within" if low <= 0.0 <= high else "next to (less than its width away)"
         return 0.0, f"0 ({where} the observed range {low:g} to {high:g})"
-    unit = 1.0 if spec.integer else 10.0 ** -spec.decimals
+    # Whole numbers written with a decimal point ("1995.0") still step by 1.
+    whole = spec.integer or bool((observed == observed.round()).all())
+    unit = 1.0 if whole else 10.0 ** -spec.decimals
     value = float(f"{low - unit:.12g}")
     return value, (f"{value:g}, one unit ({unit:g}) below the smallest observed value "
                    f"{low:g}, outside every observed value (0 is far from the observed range "
