@@ -116,3 +116,29 @@ def test_fill_table_is_what_the_readme_shows(demo):
     for name, (method, _) in {n: (c[1], c[2]) for n, c in shown.items()}.items():
         assert plan["columns"][name]["method"] == method, name
     assert out.read_bytes() == (demo / "trips_filled.csv").read_bytes()
+
+
+def test_score_table_is_what_the_readme_shows(demo):
+    # The README's score command is the demo's own (the 99 code confirmed, target spoiled,
+    # default settings), so the demo's plan.json is the plan it printed.
+    block = readme_block("imputelab score imputelab-demo/trips.csv --out plan.json "
+                         "--missing-code driver_rating=99 --target spoiled")
+    plan = load(demo / "plan.json")
+    methods = plan["settings"]["methods"]
+    lines = [line.split() for line in block.splitlines()
+             if line.startswith(" ") and line.split()
+             and line.split()[0] in plan["columns"]]
+    assert lines, "the README shows the selection scores"
+    for cells in lines:
+        name, metric, *values = cells
+        col = plan["columns"][name]
+        scores = {m: col["scores"][m][metric] for m in methods if m in col["scores"]}
+        *shown, held = values
+        assert len(shown) == len(scores), name
+        chosen = [m for m, v in zip(scores, shown, strict=True) if v.endswith("*")]
+        assert chosen == [col["method"]], name
+        for (method, value), text in zip(scores.items(), shown, strict=True):
+            assert float(text.rstrip("*")) == pytest.approx(value, abs=5e-4), (name, method)
+        assert float(held) == pytest.approx(col["expected_error"]["score"], abs=5e-4), name
+    assert (f"Rows with the target 'spoiled' missing: "
+            f"{plan['source']['target_missing_rows']}") in block
