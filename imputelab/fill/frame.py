@@ -260,9 +260,12 @@ def _guarded(group: _Group, work: Any) -> Any:
     except PlanError:
         raise
     except Exception as exc:
-        if not group.edited or (isinstance(exc, ImputelabError)
-                                and not isinstance(exc, OptionError)):
-            raise  # default settings failing is a bug (or the data's fault), not the plan's
+        # A method's own parameter check (OptionError) or an unexpected failure under edited
+        # params is the plan's fault; other errors are the data's, and default settings
+        # failing is a bug.
+        plan_fault = isinstance(exc, OptionError) or not isinstance(exc, ImputelabError)
+        if not (group.edited and plan_fault):
+            raise
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
         raise PlanError(
             f"plan: column '{group.columns[0]}': {group.method_name} failed with params "

@@ -56,7 +56,7 @@ from imputelab.fill.frame import (
 from imputelab.fill.sample import DEFAULT_FIT_SAMPLE, fit_sample, reservoir_sample
 from imputelab.fill.text import _format
 from imputelab.fill.writing import _csv_body, _CsvOut, _ParquetOut
-from imputelab.io.columns import new_token_warnings
+from imputelab.io.columns import new_token_warnings, ordered_tokens
 from imputelab.io.tables import Table, atomic_path, table_format
 from imputelab.score.plan import Plan
 
@@ -379,7 +379,6 @@ class _Totals:
     def close(self) -> FillReport:
         """The report, with the new tokens (most frequent first) and their warnings."""
         for name, found in self.tokens.items():
-            self.report.new_tokens[name] = dict(sorted(found.items(),
-                                                       key=lambda kv: (-kv[1], kv[0])))
+            self.report.new_tokens[name] = ordered_tokens(found)
         self.report.warnings.extend(new_token_warnings(self.report.new_tokens))
         return self.report

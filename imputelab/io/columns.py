@@ -42,6 +42,7 @@ __all__ = [
     "INDICATOR_SUFFIX",
     "blank_mask",
     "new_token_warnings",
+    "ordered_tokens",
     "IMPUTABLE_KINDS",
     "KINDS",
     "MISSING_TOKENS",
@@ -158,10 +159,14 @@ def new_token_warnings(tokens: Mapping[str, Mapping[str, int]]) -> list[str]:
     """
     lines = []
     for name, found in tokens.items():
-        ordered = sorted(found.items(), key=lambda kv: (-kv[1], kv[0]))[:5]
-        shown = ", ".join(f"'{t}' ({c})" for t, c in ordered)
+        shown = ", ".join(f"'{t}' ({c})" for t, c in list(ordered_tokens(found).items())[:5])
         lines.append(f"column '{name}': new cells read as missing: {shown}")
     return lines
+
+
+def ordered_tokens(counts: Mapping[Any, int]) -> dict[str, int]:
+    """Token counts, most frequent first (ties in text order), as plain ``str: int``."""
+    return {str(k): int(v) for k, v in sorted(counts.items(), key=lambda kv: (-kv[1], kv[0]))}
 
 
 def _blank_mask(values: pd.Series) -> np.ndarray:
@@ -174,7 +179,7 @@ def _tokens(raw: pd.Series, turned_missing: np.ndarray) -> dict[str, int]:
     cells = raw[turned_missing].astype("str").str.strip()
     cells = cells[cells != ""]
     counts = cells.value_counts(sort=False)
-    return {str(k): int(v) for k, v in sorted(counts.items(), key=lambda kv: (-kv[1], kv[0]))}
+    return ordered_tokens(counts)
 
 
 def infer_spec(
